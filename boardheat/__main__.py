@@ -1,0 +1,5 @@
+"""Allow ``python -m boardheat``."""
+
+from boardheat.cli import app
+
+app(prog_name="boardheat")

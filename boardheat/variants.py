@@ -1,0 +1,63 @@
+"""Design variants: solve the base board and every ``[[variant]]``, sharing meshes.
+
+Input: a board file with ``[[variant]]`` sections. Output: one
+:class:`~boardheat.checks.CheckResult` per board (base first). Variants whose geometry equals
+another's (same outline, footprints, pours, via fields, contacts and mesh density) reuse its
+mesh; copper weights, fills, heat transfer coefficients and powers change only the assembled
+matrices. Variants are solved in parallel worker processes.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import multiprocessing
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+
+import numpy as np
+
+from boardheat.board import Board, load_variants
+from boardheat.checks import CheckResult
+from boardheat.meshing import Mesh, build_mesh
+from boardheat.run import RunOptions, build_model, run_check
+
+
+def geometry_key(board: Board) -> str:
+    """Return a digest of everything the 2D mesh depends on."""
+    h = hashlib.sha256()
+    arrays = [board.outline, *board.holes]
+    arrays += [np.concatenate([p.footprint_polygon().ravel(), p.footprint]) for p in board.parts]
+    arrays += [p.region.polygon for p in board.pours]
+    arrays += [v.region.polygon for v in board.via_fields]
+    arrays += [m.region.polygon for m in board.mounts]
+    for a in arrays:
+        h.update(np.ascontiguousarray(a, dtype=np.float64).tobytes())
+        h.update(b"|")
+    names = [p.refdes for p in board.parts] + [p.name for p in board.pours]
+    names += [v.name for v in board.via_fields] + [m.name for m in board.mounts]
+    h.update(repr((names, board.run.mesh_refinement, board.thickness)).encode())
+    return h.hexdigest()
+
+
+def _solve(board: Board, mesh: Mesh, options: RunOptions) -> CheckResult:
+    return run_check(board, options, model=build_model(board, mesh=mesh))
+
+
+def run_variants(
+    path: str | Path, options: RunOptions = RunOptions(), jobs: int = 2
+) -> tuple[list[CheckResult], list[Board]]:
+    """Solve the base board and each variant; return results and boards, base first."""
+    boards = load_variants(path)
+    meshes: dict[str, Mesh] = {}
+    for board in boards:
+        key = geometry_key(board)
+        if key not in meshes:
+            meshes[key] = build_mesh(board, verbose=options.verbose)
+    work = [(b, meshes[geometry_key(b)]) for b in boards]
+    if jobs <= 1 or len(work) <= 1:
+        return [_solve(b, m, options) for b, m in work], boards
+    context = multiprocessing.get_context("spawn")
+    with ProcessPoolExecutor(max_workers=min(jobs, len(work)), mp_context=context) as pool:
+        futures = [pool.submit(_solve, b, m, options) for b, m in work]
+        results = [f.result() for f in futures]
+    return results, boards
