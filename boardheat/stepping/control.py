@@ -1,0 +1,170 @@
+"""Step-size control: the step ladder, landing on stops, rejection and restarts."""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable
+from typing import Any
+
+import numpy as np
+
+from boardheat.errors import SolverError
+from boardheat.stepping.problem import FloatArray, StepperOptions
+
+GAMMA = 2.0 - math.sqrt(2.0)
+"""Fraction of the step covered by the trapezoidal stage of TR-BDF2."""
+_D = GAMMA / 2.0  # d: diagonal coefficient of both stages (= 1 - sqrt(2)/2)
+_W = math.sqrt(2.0) / 4.0  # w: weight of Z_n and Z_gamma in the BDF2 stage
+_SAFETY = 0.9
+_FAC_MIN = 0.2
+_FAC_MAX = 5.0
+_PROGRESS_SECONDS = 0.25
+_MANTISSA_BITS = 40  # step sizes equal to 40 bits share one factorization
+# error estimate  K e = E_F h F_n + E_GAMMA M δ_γ + E_END M δ  (see integrate)
+_E_F = -4.0 * _W / 3.0
+_E_GAMMA = (1.0 + 2.0 * _W) / (3.0 * _D)
+_E_END = -2.0 / 3.0
+
+
+def _quantize(dt: float) -> float:
+    """Round dt to 40 mantissa bits so that steps differing by rounding share one matrix."""
+    mantissa, exponent = math.frexp(dt)
+    scale = float(1 << _MANTISSA_BITS)
+    return math.ldexp(round(mantissa * scale) / scale, exponent)
+
+
+class _Ladder:
+    """Step sizes base * ratio**k (k any integer), each rounded by :func:`_quantize`."""
+
+    def __init__(self, base: float, ratio: float) -> None:
+        self.base = _quantize(base)
+        self._ratio = ratio
+        self._log_ratio = math.log(ratio)
+
+    def rung(self, k: int) -> float:
+        return _quantize(self.base * self._ratio**k)
+
+    def floor(self, dt: float) -> float:
+        """Largest rung <= dt (within 1e-9 relative)."""
+        k = math.floor(math.log(dt / self.base) / self._log_ratio + 1e-9)
+        while self.rung(k) > dt * (1.0 + 1e-9):
+            k -= 1
+        while self.rung(k + 1) <= dt * (1.0 + 1e-9):
+            k += 1
+        return self.rung(k)
+
+    def ceil(self, dt: float) -> float:
+        """Smallest rung >= dt (within 1e-9 relative)."""
+        below = self.floor(dt)
+        if below >= dt * (1.0 - 1e-9):
+            return below
+        return self.floor(below * self._ratio * (1.0 + 1e-6))
+
+
+def _starting_step(
+    m_lump: FloatArray,
+    A: Any,
+    T: FloatArray,
+    F: FloatArray,
+    T_ref: FloatArray,
+    opts: StepperOptions,
+) -> float:
+    """Guess a first step (s) from the scaled rate of change and its derivative.
+
+    After the starting-step heuristic of Hairer, Nørsett & Wanner, Solving Ordinary
+    Differential Equations I (2nd ed., 1993), Sec. II.4, for order p = 2:
+    h = (0.01 / max(d1, d2))^(1/3), with d1 = ‖M_l⁻¹ F‖ and d2 = ‖M_l⁻¹ A M_l⁻¹ F‖ in the
+    error norm of :class:`StepperOptions` (M_l: row-sum lumped M). F is affine in T, so d2 is
+    the exact difference quotient and their cap h ≤ 100·h0, a guard against a poor quotient,
+    is not applied. A field at rest (d1 = d2 = 0) under constant power stays at rest, so any
+    step is exact: the result is then unbounded and the caller clips it to the next stop,
+    t_end and dt_max (a power that varies inside the interval is caught by the estimate).
+    """
+    scale = opts.atol + opts.rtol * np.abs(T - T_ref)
+    rate = F / m_lump
+    d1 = float(np.max(np.abs(rate) / scale))
+    d2 = float(np.max(np.abs(A @ rate) / m_lump / scale))
+    largest = max(d1, d2)
+    return math.inf if largest == 0.0 else float((0.01 / largest) ** (1.0 / 3.0))
+
+
+class _Controller:
+    """Step-size choice: ladder rungs, landing on stops, rejection, restart after a jump."""
+
+    def __init__(self, opts: StepperOptions, first: float, t_end: float) -> None:
+        self.adaptive = opts.fixed_dt is None
+        self._opts = opts
+        self.floor_hits = 0
+        self.first_floor_time = math.nan
+        self._learned_restart: float | None = None
+        self._after_jump = False
+        self._ladder = _Ladder(min(max(first, opts.dt_min), opts.dt_max, t_end), opts.ladder_ratio)
+        self.h = self._ladder.base
+        self._h_floor = self._ladder.ceil(opts.dt_min)
+        self._h_cap = self._ladder.floor(opts.dt_max) if math.isfinite(opts.dt_max) else math.inf
+        self._fixed_dt = opts.fixed_dt if opts.fixed_dt is not None else math.inf
+        self._segment = (0.0, 0, 0.0)  # fixed steps: start, number of steps, step
+        self._segment_done = 0
+
+    def propose(self, t: float, t_stop: float) -> tuple[float, float, bool]:
+        """Return (dt used in the formulas, time reached, whether the step lands on t_stop)."""
+        gap = t_stop - t
+        if self.adaptive:
+            landing = self.h >= gap * (1.0 - 1e-6)
+            step = gap if landing else (0.5 * gap if 2.0 * self.h > gap else self.h)
+            t_new = t_stop if landing else t + _quantize(step)
+        else:
+            if self._segment_done == self._segment[1]:
+                count = max(1, math.ceil(gap / self._fixed_dt * (1.0 - 1e-12)))
+                self._segment, self._segment_done = (t, count, gap / count), 0
+            start, count, step = self._segment
+            landing = self._segment_done + 1 == count
+            t_new = t_stop if landing else start + (self._segment_done + 1) * step
+        if not t_new > t:
+            raise SolverError(
+                f"integrate: step {step:.3e} s at t={t!r} s is below the time resolution; "
+                "expected dt_min well above the spacing of floats at t"
+            )
+        return _quantize(step), t_new, landing
+
+    def rejects(self, t: float, dt: float, err: float) -> bool:
+        """Return True (and shrink the step) if a step with normalized error err is redone."""
+        if not (self.adaptive and err > 1.0):
+            return False
+        if dt > self._h_floor * (1.0 + 1e-9):
+            shrink = max(_FAC_MIN, _SAFETY * err ** (-1.0 / 3.0))
+            self.h = max(self._h_floor, self._ladder.floor(dt * shrink))
+            return True
+        self.floor_hits += 1  # at the floor: accept, and warn at the end
+        if self.floor_hits == 1:
+            self.first_floor_time = t
+        return False
+
+    def accepted(self, dt: float, err: float) -> None:
+        """Set the next step to dt * min(5, max(0.2, 0.9 err^(-1/3))) rounded down to the ladder."""
+        if not self.adaptive:
+            self._segment_done += 1
+            return
+        clipped = dt < self.h * (1.0 - 1e-9)
+        grow = _FAC_MAX if err <= 0.0 else _SAFETY * err ** (-1.0 / 3.0)
+        grow = min(_FAC_MAX, max(_FAC_MIN, grow))
+        proposal = dt * grow
+        if clipped and grow >= 1.0:  # a step shortened to land does not shrink the next one
+            proposal = max(proposal, self.h)
+        self.h = min(self._h_cap, max(self._h_floor, self._ladder.floor(proposal)))
+        if self._after_jump and not clipped:
+            self._learned_restart = self.h  # what the estimate asked for after the last jump
+        self._after_jump = False
+
+    def restart(self, guess: Callable[[], float]) -> None:
+        """Shrink the next step after a jump in p.
+
+        Uses ``restart_dt`` if set, else the step the error estimate asked for right after the
+        previous jump, else the starting-step heuristic ``guess()``.
+        """
+        if not self.adaptive:
+            return
+        restart = self._opts.restart_dt or self._learned_restart or guess()
+        restart = max(min(restart, self.h), self._opts.dt_min)
+        self.h = max(self._h_floor, self._ladder.floor(restart))
+        self._after_jump = True

@@ -1,0 +1,618 @@
+"""Tests of boardheat.stepping against analytic solutions and independent scipy integrators.
+
+Every check names its source. Reference solutions come from outside the project: closed forms,
+``scipy.linalg.expm`` (exact for linear constant-coefficient systems, with the forcing folded
+into an augmented matrix as in Van Loan, "Computing integrals involving the matrix
+exponential", IEEE Trans. Autom. Control 23 (1978) 395-404) and ``scipy.integrate.solve_ivp``
+(Radau, rtol = 1e-12).
+"""
+
+from __future__ import annotations
+
+import importlib.util
+import math
+from pathlib import Path
+
+import numpy as np
+import pytest
+import scipy.linalg as sl
+import scipy.sparse as sp
+from scipy.integrate import solve_ivp
+from scipy.sparse.linalg import spsolve
+
+from boardheat.errors import SolverError, StepperWarning
+from boardheat.stepping import (
+    GAMMA,
+    LinearOde,
+    StepperOptions,
+    available_backends,
+    integrate,
+    make_factorization,
+    solve_steady,
+)
+
+T_AMB = 300.0  # K
+SEED = 20240611
+
+
+# --- helpers -----------------------------------------------------------------------------
+
+
+def chain(n=50, capacity=1.0, g_link=50.0, g_amb=0.5, c_source=None, consistent=False):
+    """1-D conduction chain: node capacities (J/K), links g_link (W/K), g_amb to ambient per node.
+
+    A is an M-matrix (positive diagonal, non-positive off-diagonal, weakly diagonally dominant).
+    The load g = g_amb * T_AMB makes T = T_AMB the steady state without power, so the rise
+    u = T - T_AMB obeys M u' + A u = B p. Source 0 heats node 0.
+    """
+    main = np.full(n, 2.0 * g_link) + g_amb
+    main[[0, -1]] -= g_link
+    off = -g_link * np.ones(n - 1)
+    A = sp.diags_array([main, off, off], offsets=[0, 1, -1]).tocsr()
+    caps = np.full(n, capacity)
+    if c_source is not None:
+        caps[0] = c_source
+    if consistent:
+        # consistent mass of linear elements with the same total capacity per node
+        M = sp.diags_array(
+            [caps * 2.0 / 3.0, caps[:-1] / 6.0, caps[:-1] / 6.0], offsets=[0, 1, -1]
+        ).tocsr()
+        M = M + sp.diags_array(caps - np.asarray(M.sum(axis=1)).ravel())
+    else:
+        M = sp.diags_array(caps).tocsr()
+    g = np.full(n, g_amb * T_AMB)
+    B = sp.csr_array((np.ones(1), ([0], [0])), shape=(n, 1))
+    return M, A, g, B
+
+
+def pulse_train(power, starts, widths):
+    """Return p(t, side) (1 source, W) and its breakpoints for pulses [start, start + width)."""
+    starts = np.asarray(starts, dtype=float)
+    ends = starts + np.asarray(widths, dtype=float)
+
+    def p(t, side):
+        k = np.searchsorted(starts, t, side="right" if side == "right" else "left") - 1
+        if k < 0:
+            return np.zeros(1)
+        on = (starts[k] <= t < ends[k]) if side == "right" else (starts[k] < t <= ends[k])
+        return np.array([power if on else 0.0])
+
+    return p, np.sort(np.concatenate([starts, ends]))
+
+
+def constant_power_solution(M, A, g, B, T0, power, times):
+    """Exact fields (len(times), n) for constant power from t = 0: T_inf + expm(J t)(T0 - T_inf)."""
+    T_inf = np.linalg.solve(A.toarray(), g + B.toarray() @ np.atleast_1d(power))
+    J = -np.linalg.solve(M.toarray(), A.toarray())
+    return np.array([T_inf + sl.expm(J * t) @ (T0 - T_inf) for t in times])
+
+
+def cosine_ramp_solution(M, A, g, b, power, omega, T0, t):
+    """Exact T(t) for p(t) = power (1 - cos(omega t)) via expm of an augmented matrix (Van Loan)."""
+    n = M.shape[0]
+    Minv = np.linalg.inv(M.toarray())
+    Z = np.zeros((n + 3, n + 3))  # state (T, 1, cos(omega t), sin(omega t))
+    Z[:n, :n] = -Minv @ A.toarray()
+    Z[:n, n] = Minv @ (g + power * b)
+    Z[:n, n + 1] = -Minv @ (power * b)
+    Z[n + 1, n + 2] = -omega
+    Z[n + 2, n + 1] = omega
+    return (sl.expm(Z * t) @ np.concatenate([T0, [1.0, 1.0, 0.0]]))[:n]
+
+
+def identity_probes(n):
+    return sp.eye_array(n, format="csr")
+
+
+def options(**settings):
+    """Return StepperOptions on SuperLU (tiny systems: other back ends' call overhead dominates)."""
+    return StepperOptions(**{"backend": "splu", **settings})
+
+
+# --- analytic references -------------------------------------------------------------------
+
+
+def test_lumped_rc_node_follows_exponential_rise():
+    # Incropera & DeWitt, Fundamentals of Heat and Mass Transfer (6th ed.), Sec. 5.1-5.3
+    # (lumped capacitance, general analysis with generation): C dT/dt = P - (T - T_inf)/R gives
+    # T = T_inf + P R (1 - exp(-t / (R C)))  (closed form recalled from memory).
+    C, R, power = 2.0, 4.0, 3.0  # J/K, K/W, W
+    ode = LinearOde(
+        sp.csr_array([[C]]),
+        sp.csr_array([[1.0 / R]]),
+        np.array([T_AMB / R]),
+        sp.csr_array([[1.0]]),
+        lambda t, side: np.array([power]),
+    )
+    t_end = 5.0 * R * C
+    for opts in (options(), options(rtol=1e-5, atol=1e-5)):
+        sol = integrate(ode, np.array([T_AMB]), t_end, sp.csr_array([[1.0]]), opts)
+        exact = T_AMB + power * R * (1.0 - np.exp(-sol.t / (R * C)))
+        scale = opts.atol + opts.rtol * (exact - T_AMB)
+        # error-per-step control bounds the local error; the accumulated global error is
+        # stated to stay within 5 tolerance units (measured: 0.3 at default, 3.7 at 1e-5)
+        assert np.max(np.abs(sol.probes[:, 0] - exact) / scale) < 5.0
+        assert sol.t[-1] == t_end
+    assert sol.stats.rejected == 0
+
+
+def test_pulse_response_is_step_minus_delayed_step():
+    # Superposition for a linear time-invariant system (e.g. Oppenheim & Willsky, Signals and
+    # Systems, 2nd ed., Sec. 2.3): the response to a rectangular pulse [t1, t2) equals the step
+    # response from t1 minus the same step response delayed to t2.
+    M, A, g, B = chain(n=50, c_source=0.05)
+    t1, t2, power = 2.0, 7.0, 10.0
+    opts = options(rtol=1e-4, atol=1e-4)
+    compare = [1.0, 2.0, 2.5, 4.0, 7.0, 7.3, 9.0, 12.0, 20.0, 30.0]
+    runs = {}
+    for name, (start, width) in {
+        "pulse": (t1, t2 - t1),
+        "step": (t1, math.inf),
+        "delayed": (t2, math.inf),
+    }.items():
+        p, bps = pulse_train(power, [start], [width])
+        ode = LinearOde(M, A, g, B, p, bps[np.isfinite(bps)])
+        sol = integrate(ode, np.full(50, T_AMB), 30.0, identity_probes(50), opts, compare)
+        runs[name] = np.array([sol.snapshots[t] for t in compare]) - T_AMB
+    superposed = runs["step"] - runs["delayed"]
+    peak_rise = np.max(runs["step"])
+    # stated bound: 3 tolerance units for the three runs together (measured: 0.13)
+    assert np.max(np.abs(runs["pulse"] - superposed)) < 3.0 * (opts.atol + opts.rtol * peak_rise)
+    assert np.max(runs["pulse"]) > 1.0  # the pulse really heated the chain
+
+
+def _fixed_step_errors(method, counts, consistent=False):
+    n, power, omega, t_end = 50, 20.0, 2.0 * np.pi / 10.0, 5.0
+    M, A, g, B = chain(n=n, consistent=consistent)
+    b = B.toarray()[:, 0]
+    ode = LinearOde(M, A, g, B, lambda t, side: np.array([power * (1.0 - np.cos(omega * t))]))
+    T0 = np.full(n, T_AMB)
+    exact = cosine_ramp_solution(M, A, g, b, power, omega, T0, t_end)
+    dts, errors = [], []
+    for count in counts:
+        opts = options(method=method, fixed_dt=t_end / count)
+        sol = integrate(ode, T0, t_end, identity_probes(n), opts)
+        assert sol.stats.steps == count
+        dts.append(t_end / count)
+        errors.append(np.max(np.abs(sol.final - exact)))
+    return np.array(dts), np.array(errors)
+
+
+def test_fixed_step_trbdf2_is_second_order_and_backward_euler_first_order():
+    # Bank et al. (1985) and Hosea & Shampine (1996): TR-BDF2 is second order; backward Euler
+    # is first order (standard, e.g. Hairer & Wanner, Solving ODEs II, ch. IV; chapter recalled
+    # from memory). Reference: exact solution by expm of the augmented matrix (Van Loan 1978).
+    # Stated: slope within 0.15 of the order (measured 2.01 and 0.97).
+    dts, errors = _fixed_step_errors("trbdf2", (20, 40, 80))
+    rate = np.polyfit(np.log(dts), np.log(errors), 1)[0]
+    assert abs(rate - 2.0) < 0.15, f"observed temporal order {rate:.2f}"
+    assert errors[-1] < 1e-4  # K
+    dts, errors = _fixed_step_errors("backward_euler", (40, 80, 160))
+    rate = np.polyfit(np.log(dts), np.log(errors), 1)[0]
+    assert abs(rate - 1.0) < 0.15, f"observed temporal order {rate:.2f}"
+
+
+def test_consistent_mass_matrix_keeps_second_order():
+    # Same reference as above with a non-diagonal (consistent) capacity matrix: exercises the
+    # sparse M-vector products of the stages and of the error estimate.
+    dts, errors = _fixed_step_errors("trbdf2", (20, 40, 80), consistent=True)
+    rate = np.polyfit(np.log(dts), np.log(errors), 1)[0]
+    assert abs(rate - 2.0) < 0.15, f"observed temporal order {rate:.2f}"
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize(
+    ("method", "order", "counts"),
+    [
+        ("trbdf2", 2.0, (10, 20, 40, 80, 160, 320, 640)),
+        ("backward_euler", 1.0, (40, 80, 160, 320, 640, 1280)),
+    ],
+)
+def test_fixed_step_convergence_study(method, order, counts):
+    # Longer dt sweep of the quick order check above; same sources.
+    dts, errors = _fixed_step_errors(method, counts)
+    rate = np.polyfit(np.log(dts), np.log(errors), 1)[0]
+    assert abs(rate - order) < 0.15, f"observed temporal order {rate:.2f}"
+    assert errors[-1] < (1.5e-6 if order == 2.0 else 6e-4)  # K, finest step
+
+
+def test_local_error_estimate_is_asymptotically_exact():
+    # Hosea & Shampine (1996): the companion formula with weights ((1-w)/3, (3w+1)/3, d/3) is
+    # third order, so the estimate equals the local error of TR-BDF2 up to O(h^4) and the
+    # local error itself is O(h^3). One step from a non-equilibrium state of a smooth problem,
+    # compared with solve_ivp(Radau, rtol=1e-13).
+    C, G, power, omega = 2.0, 1.0, 5.0, 1.3
+
+    def p(t, side):
+        return np.array([power * (1.0 - np.cos(omega * t))])
+
+    ode = LinearOde(
+        sp.csr_array([[C]]), sp.csr_array([[G]]), np.array([G * T_AMB]), sp.csr_array([[1.0]]), p
+    )
+    hs, estimates, true_errors = [0.2, 0.1, 0.05, 0.025], [], []
+    for h in hs:
+        sol = integrate(
+            ode,
+            np.array([310.0]),
+            h,
+            sp.csr_array([[1.0]]),
+            options(fixed_dt=h, atol=1.0, rtol=0.0),
+        )
+        ref = solve_ivp(
+            lambda t, y: (G * T_AMB + p(t, "left") - G * y) / C,
+            (0.0, h),
+            [310.0],
+            method="Radau",
+            rtol=1e-13,
+            atol=1e-13,
+        )
+        estimates.append(sol.err[-1])  # atol = 1 K, rtol = 0: |estimate| in kelvin
+        true_errors.append(abs(sol.final[0] - ref.y[0, -1]))
+    ratio = np.array(estimates) / np.array(true_errors)
+    assert np.all(np.abs(ratio - 1.0) < 0.01), ratio
+    slope = np.polyfit(np.log(hs), np.log(true_errors), 1)[0]
+    assert abs(slope - 3.0) < 0.15
+
+
+def test_adaptive_global_error_tracks_tolerance():
+    # Reference: solve_ivp(Radau, rtol=1e-12) on each interval where the power is constant.
+    # Expectation (tolerance proportionality of error-per-step control, e.g. Hairer, Norsett &
+    # Wanner, Solving ODEs I, Sec. II.4, section recalled from memory): local error ~ h^3 = tol
+    # and global error ~ h^2, so global error ~ tol^(2/3), a factor ~4.6 per decade of
+    # tolerance. Stated bounds: factor 2.5-20 per decade, and the global error stays below 3
+    # tolerance units (measured: factors 3.7 and 4.6; 0.32, 0.59, 1.40 units).
+    n, power, t_on, t_off, t_end = 30, 10.0, 1.0, 20.0, 60.0
+    M, A, g, B = chain(n=n, c_source=0.05)
+    p, bps = pulse_train(power, [t_on], [t_off - t_on])
+    ode = LinearOde(M, A, g, B, p, bps)
+    Md, Ad, b = M.diagonal(), A.toarray(), B.toarray()[:, 0]
+    pieces, state = [], np.full(n, T_AMB)
+    for start, stop, level in ((0.0, t_on, 0.0), (t_on, t_off, power), (t_off, t_end, 0.0)):
+        ref = solve_ivp(
+            lambda t, y, q=level: (g + q * b - Ad @ y) / Md,
+            (start, stop),
+            state,
+            method="Radau",
+            jac=-Ad / Md[:, None],
+            rtol=1e-12,
+            atol=1e-12,
+            dense_output=True,
+        )
+        pieces.append((start, stop, ref.sol))
+        state = ref.y[:, -1]
+
+    def reference(t):
+        for start, stop, dense in pieces:
+            if start <= t <= stop:
+                return dense(t)
+        raise AssertionError(t)
+
+    worst_abs, worst_units = [], []
+    for rtol in (1e-2, 1e-3, 1e-4):
+        opts = options(rtol=rtol, atol=rtol)
+        sol = integrate(ode, np.full(n, T_AMB), t_end, identity_probes(n), opts)
+        exact = np.array([reference(t) for t in sol.t])
+        error = np.abs(sol.probes - exact)
+        worst_abs.append(error.max())
+        worst_units.append(np.max(error / (opts.atol + opts.rtol * np.abs(exact - T_AMB))))
+    assert max(worst_units) < 3.0, worst_units
+    gains = np.array(worst_abs[:-1]) / np.array(worst_abs[1:])
+    assert np.all((gains > 2.5) & (gains < 20.0)), gains
+
+
+# --- qualitative properties ------------------------------------------------------------------
+
+
+def test_sudden_pulse_never_drives_a_node_below_ambient():
+    # Discrete maximum principle: with a diagonal (lumped) capacity matrix and an M-matrix A,
+    # M + c dt A is an M-matrix with a non-negative inverse, so a heating step from rest cannot
+    # cool any node (Fujii 1973, "Some remarks on finite element analysis of time-dependent
+    # field problems"; recalled from memory). Checked on every recorded step, with 1e-12 K of
+    # round-off slack on 300 K values.
+    n = 50
+    M, A, g, B = chain(n=n, g_link=500.0, c_source=1e-3)
+    p, bps = pulse_train(10.0, [0.5], [math.inf])
+    ode = LinearOde(M, A, g, B, p, bps[:1])
+    for opts in (
+        options(),
+        options(rtol=0.1, atol=1.0),
+        options(fixed_dt=10.0),
+        options(method="backward_euler", fixed_dt=1.0),
+    ):
+        sol = integrate(ode, np.full(n, T_AMB), 100.0, identity_probes(n), opts)
+        assert sol.probes.min() >= T_AMB - 1e-12, opts
+        assert sol.probes[-1, -1] > T_AMB + 0.1  # the far end did heat up
+
+    # The check can fail: a consistent mass matrix undershoots after the same sudden pulse
+    # when dt * g_link < C / 6 (M + dt A then has positive off-diagonal entries), the classic
+    # reason for lumping; here with backward Euler.
+    M, A, g, B = chain(n=n, consistent=True)
+    ode = LinearOde(M, A, g, B, p, bps[:1])
+    opts = options(method="backward_euler", fixed_dt=1e-4)
+    sol = integrate(ode, np.full(n, T_AMB), 0.51, identity_probes(n), opts)
+    assert sol.probes.min() < T_AMB - 1e-6
+
+
+def test_cooling_after_a_pulse_stays_at_ambient_within_tolerance():
+    # Backward Euler keeps the discrete maximum principle through the whole pulse (same
+    # argument as above). TR-BDF2 does not in general: its stability function
+    # R(z) = (1 + (sqrt(2) - 1) z) / (1 - d z)^2 (derived from the two stages) is negative for
+    # z < -(1 + sqrt(2)), so a stiff tail may dip below ambient; the error control keeps the
+    # dip small. Stated bound: 0.1 atol.
+    n = 50
+    M, A, g, B = chain(n=n, c_source=0.01)
+    p, bps = pulse_train(10.0, [1.0], [49.0])
+    ode = LinearOde(M, A, g, B, p, bps)
+    sol = integrate(
+        ode,
+        np.full(n, T_AMB),
+        200.0,
+        identity_probes(n),
+        options(method="backward_euler", fixed_dt=0.5),
+    )
+    assert sol.probes.min() >= T_AMB - 1e-12
+    opts = options()
+    sol = integrate(ode, np.full(n, T_AMB), 200.0, identity_probes(n), opts)
+    assert sol.probes.min() >= T_AMB - 0.1 * opts.atol
+
+
+@pytest.mark.parametrize("z", [-0.01, -1.0, -2.0, -5.0, -8.24, -100.0, -1e6])
+def test_one_step_reproduces_the_trbdf2_stability_function(z):
+    # Linear stability function of TR-BDF2 with gamma = 2 - sqrt(2), derived from the two stages
+    # on y' = lambda y: R(z) = (1 + (sqrt(2) - 1) z) / (1 - d z)^2, d = gamma / 2; R(z) -> 0 as
+    # z -> -inf (L-stability, Hosea & Shampine 1996), minimum about -0.207 at z = -8.24.
+    d = GAMMA / 2.0
+    expected = (1.0 + (math.sqrt(2.0) - 1.0) * z) / (1.0 - d * z) ** 2
+    ode = LinearOde(
+        sp.csr_array([[1.0]]),
+        sp.csr_array([[-z]]),
+        np.zeros(1),
+        sp.csr_array((1, 1)),
+        lambda t, side: np.zeros(1),
+    )
+    sol = integrate(ode, np.array([1.0]), 1.0, sp.csr_array([[1.0]]), options(fixed_dt=1.0))
+    assert sol.final[0] == pytest.approx(expected, rel=1e-12, abs=1e-15)
+
+
+# --- breakpoints, pulse trains, factorization reuse -----------------------------------------
+
+
+def test_breakpoints_hit_exactly_and_2000_pulses_deliver_the_schedule_energy():
+    # Energy balance (DESIGN.md, validation): on an adiabatic chain (A 1 = 0, g = 0) the stored
+    # heat 1^T M (T - T0) equals the delivered energy. Summing the TR-BDF2 stages gives
+    # 1^T M (T_{n+1} - T_n) = h (w p_n + w p_gamma + d p_{n+1}) (column sums of B are 1), exact
+    # for power that is constant within every step, so each pulse must add exactly P * width.
+    # The probe row is the capacity vector, so the probe reads the stored heat in J (+ const).
+    n, count, power, width, period = 8, 2000, 3.0, 0.2, 1.0
+    M, A, g, B = chain(n=n, g_amb=0.0, c_source=0.05)
+    starts = 0.1 + period * np.arange(count)
+    p, bps = pulse_train(power, starts, np.full(count, width))
+    ode = LinearOde(M, A, g, B, p, bps)
+    heat = sp.csr_array(M.diagonal()[None, :])
+    sol = integrate(ode, np.full(n, T_AMB), count * period + 0.5, heat, options(rtol=1e-2))
+    assert np.all(np.isin(bps, sol.t))  # bitwise equality of every breakpoint float
+    stored = sol.probes[:, 0] - sol.probes[0, 0]
+    index = {t: i for i, t in enumerate(sol.t.tolist())}
+    per_pulse = stored[[index[t] for t in starts + width]] - stored[[index[t] for t in starts]]
+    np.testing.assert_allclose(per_pulse, power * width, rtol=1e-9)  # J, every pulse resolved
+    schedule_energy = power * width * count  # J, independent of the stepper
+    assert stored[-1] == pytest.approx(schedule_energy, rel=1e-10)
+
+
+def test_factorizations_are_reused_across_a_200_pulse_train():
+    # Periodic pulses repeat the same step sizes (ladder rungs and landing gaps), so the
+    # cached factorizations serve every pulse. Stated ratio: factorizations <= 2 % of steps.
+    n, count = 50, 200
+    M, A, g, B = chain(n=n, c_source=0.05)
+    p, bps = pulse_train(3.0, 0.1 + np.arange(count), np.full(count, 0.2))
+    ode = LinearOde(M, A, g, B, p, bps)
+    sol = integrate(ode, np.full(n, T_AMB), count + 0.5, identity_probes(n), options())
+    stats = sol.stats
+    assert stats.steps >= 2 * count
+    assert stats.factorizations <= 0.02 * stats.steps, stats
+    assert stats.solves == 3 * (stats.steps + stats.rejected)
+    assert stats.seconds_factor + stats.seconds_solve <= stats.seconds_total
+
+
+def test_adaptive_steps_come_from_the_ladder_except_landings():
+    # Steps not shortened to land on a stop are dt_0 * ratio**k (rounded to 40 mantissa bits).
+    n = 20
+    M, A, g, B = chain(n=n, c_source=0.05)
+    p, bps = pulse_train(5.0, [0.3, 4.0], [1.0, 2.5])
+    ode = LinearOde(M, A, g, B, p, bps)
+    for ratio in (2.0, 3.0):
+        opts = options(ladder_ratio=ratio, dt_initial=1e-3)
+        sol = integrate(ode, np.full(n, T_AMB), 30.0, identity_probes(n), opts)
+        ends_at_stop = np.isin(sol.t, np.append(bps, 30.0))
+        # a gap between one and two steps is split into halves: the first half is off-ladder
+        first_half = np.zeros_like(ends_at_stop)
+        first_half[:-1] = ends_at_stop[1:] & np.isclose(sol.dt[:-1], sol.dt[1:], rtol=1e-9)
+        free = sol.dt[1:][~(ends_at_stop | first_half)[1:]]
+        assert free.size > 20
+        k = np.log(free / 1e-3) / np.log(ratio)
+        np.testing.assert_allclose(k, np.round(k), atol=1e-9)
+        assert sol.stats.distinct_dt <= 40
+
+
+# --- outputs -----------------------------------------------------------------------------------
+
+
+def test_snapshots_peaks_and_progress():
+    n = 20
+    M, A, g, B = chain(n=n, c_source=0.05)
+    p, bps = pulse_train(5.0, [1.0], [3.0])
+    ode = LinearOde(M, A, g, B, p, bps)
+    P = sp.csr_array(np.eye(n)[[0, n - 1]])  # probes: heated end, far end
+    snapshot_times = [0.0, 0.123456789, 2.5, 10.0]
+    calls = []
+    sol = integrate(
+        ode,
+        np.full(n, T_AMB),
+        10.0,
+        P,
+        options(),
+        snapshot_times=snapshot_times,
+        peak_rows=[0, 1],
+        progress=lambda t, steps: calls.append((t, steps)),
+    )
+    assert set(sol.snapshots) == set(snapshot_times)
+    for t in snapshot_times:
+        i = int(np.flatnonzero(sol.t == t)[0])  # landed on exactly
+        np.testing.assert_array_equal(P @ sol.snapshots[t], sol.probes[i])
+    for row in (0, 1):
+        t_peak, field_at_peak = sol.peak_fields[row]
+        i = int(np.argmax(sol.probes[:, row]))
+        assert t_peak == sol.t[i]
+        assert (P @ field_at_peak)[row] == sol.probes[i, row]
+    assert sol.peak_fields[0][0] == 4.0  # the heated end peaks when the power goes off
+    np.testing.assert_array_equal(sol.final, sol.snapshots[10.0])
+    assert calls[-1] == (10.0, sol.stats.steps)
+    assert sol.t.shape == sol.dt.shape == sol.err.shape == (sol.stats.steps + 1,)
+    with pytest.raises(ValueError, match="read-only"):
+        sol.probes[0, 0] = 0.0
+
+
+def test_step_size_floor_warns():
+    # A tolerance no step above dt_min can meet: the stepper finishes and warns.
+    M, A, g, B = chain(n=5, c_source=0.05)
+    p, bps = pulse_train(5.0, [0.0], [math.inf])
+    ode = LinearOde(M, A, g, B, p, bps[:1])
+    opts = options(rtol=0.0, atol=1e-12, dt_min=0.05)
+    with pytest.warns(StepperWarning, match="dt_min"):
+        sol = integrate(ode, np.full(5, T_AMB), 1.0, identity_probes(5), opts)
+    assert sol.stats.dt_floor_hits > 0
+    assert sol.t[-1] == 1.0
+
+
+def test_invalid_input_raises_solver_error_naming_the_field():
+    M, A, g, B = chain(n=4)
+    ode = LinearOde(M, A, g, B, lambda t, side: np.zeros(1))
+    P = identity_probes(4)
+    with pytest.raises(SolverError, match="ladder_ratio"):
+        StepperOptions(ladder_ratio=1.0)
+    with pytest.raises(SolverError, match="fixed_dt"):
+        StepperOptions(method="backward_euler")
+    with pytest.raises(SolverError, match="atol"):
+        StepperOptions(atol=0.0)
+    with pytest.raises(SolverError, match="T0"):
+        integrate(ode, np.zeros(3), 1.0, P)
+    with pytest.raises(SolverError, match="snapshot_times"):
+        integrate(ode, np.full(4, T_AMB), 1.0, P, snapshot_times=[2.0])
+    with pytest.raises(SolverError, match=r"LinearOde\.g"):
+        LinearOde(M, A, np.zeros(3), B, lambda t, side: np.zeros(1))
+    with pytest.raises(SolverError, match="breakpoints"):
+        LinearOde(M, A, g, B, lambda t, side: np.zeros(1), np.array([2.0, 1.0]))
+    bad_power = LinearOde(M, A, g, B, lambda t, side: np.zeros(2))
+    with pytest.raises(SolverError, match=r"power\(t=0\.0"):
+        integrate(bad_power, np.full(4, T_AMB), 1.0, P)
+    with pytest.raises(SolverError, match="max_steps"):
+        integrate(ode, np.full(4, T_AMB), 1.0, P, options(fixed_dt=0.01, max_steps=10))
+    with pytest.raises(SolverError, match="not installed|splu"):
+        make_factorization(A, "nonexistent")
+
+
+# --- linear solvers ------------------------------------------------------------------------------
+
+
+def _random_spd_m_matrix(n, rng):
+    """Sparse SPD M-matrix: random graph Laplacian plus a positive diagonal (W/K)."""
+    rows = rng.integers(0, n, 6 * n)
+    cols = rng.integers(0, n, 6 * n)
+    keep = rows != cols
+    w = rng.uniform(0.1, 10.0, keep.sum())
+    L = sp.coo_array((w, (rows[keep], cols[keep])), shape=(n, n)).tocsr()
+    L = L + L.T
+    lap = sp.diags_array(np.asarray(L.sum(axis=1)).ravel()) - L
+    return (lap + sp.diags_array(rng.uniform(0.01, 1.0, n))).tocsr()
+
+
+def test_solve_steady_matches_spsolve():
+    # Reference: scipy.sparse.linalg.spsolve (SuperLU with its default ordering).
+    rng = np.random.default_rng(SEED)
+    n, n_src = 400, 3
+    A = _random_spd_m_matrix(n, rng)
+    B = sp.random_array((n, n_src), density=0.05, rng=rng, format="csr")
+    ode = LinearOde(sp.eye_array(n), A, rng.uniform(0.0, 5.0, n), B, lambda t, s: np.zeros(n_src))
+    power = rng.uniform(0.0, 2.0, n_src)
+    T = solve_steady(ode, power)
+    expected = spsolve(A.tocsc(), ode.g + B @ power)
+    np.testing.assert_allclose(T, expected, rtol=1e-10)
+
+
+@pytest.mark.parametrize(
+    ("backend", "module"),
+    [("splu", None), ("cholmod", "sksparse.cholmod"), ("pardiso", "pypardiso")],
+)
+def test_backends_agree(backend, module):
+    if module is not None:
+        pytest.importorskip(module)
+    rng = np.random.default_rng(SEED + 1)
+    K = _random_spd_m_matrix(300, rng)
+    rhs = rng.normal(size=300)
+    x = make_factorization(K, backend).solve(rhs)
+    np.testing.assert_allclose(x, spsolve(K.tocsc(), rhs), rtol=1e-9, atol=1e-12)
+    # a factorization dropped above may hand its solver object on (pardiso pools them)
+    K2 = K + sp.diags_array(rng.uniform(0.5, 1.0, 300))
+    factor = make_factorization(K2, backend)
+    np.testing.assert_allclose(factor.solve(rhs), spsolve(K2.tocsc(), rhs), rtol=1e-9)
+    assert factor.backend == backend
+    assert backend in available_backends()
+
+
+@pytest.mark.parametrize(
+    ("backend", "module"), [("cholmod", "sksparse.cholmod"), ("pardiso", "pypardiso")]
+)
+def test_integrate_agrees_across_backends(backend, module):
+    # Same pulse response from every direct solver (reference: the SuperLU run).
+    pytest.importorskip(module)
+    n = 30
+    M, A, g, B = chain(n=n, c_source=0.05)
+    p, bps = pulse_train(5.0, [0.5], [2.0])
+    ode = LinearOde(M, A, g, B, p, bps)
+    times = [1.0, 2.5, 4.0]
+    # fixed steps: identical step sequences and one or two factorizations (a multi-threaded
+    # back end spends most of its time starting up on a 30-DOF system)
+    runs = [
+        integrate(ode, np.full(n, T_AMB), 4.0, identity_probes(n), opts, times)
+        for opts in (options(fixed_dt=0.05), StepperOptions(backend=backend, fixed_dt=0.05))
+    ]
+    assert runs[1].stats.backend == backend
+    assert runs[1].stats.factorizations <= 2
+    for t in times:
+        np.testing.assert_allclose(runs[1].snapshots[t], runs[0].snapshots[t], rtol=0, atol=1e-10)
+
+
+def test_auto_backend_prefers_cholmod_then_pardiso_then_splu():
+    names = available_backends()
+    order = [b for b in ("cholmod", "pardiso", "splu") if b in names]
+    assert names == order
+    assert make_factorization(sp.eye_array(3, format="csr"), "auto").backend == names[0]
+
+
+def test_singular_matrix_raises_solver_error():
+    singular = sp.csr_array(np.array([[1.0, -1.0], [-1.0, 1.0]]))
+    with pytest.raises(SolverError, match="make_factorization"):
+        make_factorization(singular, "splu").solve(np.ones(2))
+
+
+# --- benchmark (never in the default run) -----------------------------------------------------
+
+
+@pytest.mark.bench
+def test_stepping_overhead_on_a_50k_dof_board():
+    # Target from the design brief: wall time <= 1.3 x (factorization + solve time).
+    spec = importlib.util.spec_from_file_location(
+        "bench_solvers", Path(__file__).parents[1] / "scripts" / "bench_solvers.py"
+    )
+    bench = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(bench)
+    _, K, M = bench.layered_board(50_000)
+    n = K.shape[0]
+    source = n // 2 - (n // 2) % len(bench.STACKUP)  # a top-copper node near the middle
+    B = sp.csr_array((np.ones(1), ([source], [0])), shape=(n, 1))
+    p, bps = pulse_train(2.0, [0.0], [5.0])
+    ode = LinearOde(M, K, K @ np.full(n, T_AMB), B, p, bps)
+    P = sp.csr_array((np.ones(1), ([0], [source])), shape=(1, n))
+    sol = integrate(ode, np.full(n, T_AMB), 10.0, P, StepperOptions(cache_size=32))
+    stats = sol.stats
+    assert stats.seconds_total <= 1.3 * (stats.seconds_factor + stats.seconds_solve), stats
