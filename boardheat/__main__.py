@@ -2,4 +2,5 @@
 
 from boardheat.cli import app
 
-app(prog_name="boardheat")
+if __name__ == "__main__":
+    app(prog_name="boardheat")

@@ -52,7 +52,8 @@ class System:
     B : (n, n_src) CSR, W per W, column j spreads part j's power (columns sum to 1)
     P : (n_probe, n) CSR, probe rows: ``part:<refdes>`` footprint mean temperature,
         ``junction:<refdes>`` junction node (ladder parts only), ``board:mean`` capacity-weighted
-        mean temperature of every DOF (stored heat is ``total_capacity * (mean - T_ambient)``), ``board:loss`` boundary heat-flow coefficient row (W/K)
+        mean temperature of every DOF (stored heat is ``total_capacity * (mean - T_ambient)``),
+        ``board:loss`` boundary heat-flow coefficient row (W/K)
     probe_names : names of the rows of P
     loss_offset : W; boundary heat flow out of the board is ``P[board:loss] @ T - loss_offset``
     nz : through-thickness nodes; n_fe : finite-element DOFs (ladder DOFs follow)
@@ -134,9 +135,9 @@ def segment_properties(mesh: Mesh, stack: Stackup, board: Board) -> tuple[FloatA
 
 def _face_weights(mesh: Mesh, tri: IntArray, areas: FloatArray) -> FloatArray:
     """Return lumped nodal areas (n_nodes,) m^2 of the triangles ``tri``."""
-    w = np.bincount(
+    w: FloatArray = np.bincount(
         mesh.triangles[tri].ravel(), np.repeat(areas[tri] / 3.0, 3), minlength=mesh.n_nodes
-    )
+    ).astype(np.float64)
     return w
 
 

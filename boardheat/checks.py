@@ -197,9 +197,9 @@ def part_results(
                 time_above=time_above(traces.t, tj, part.tj_max),
                 board_peak=float(traces.board[:, j].max()),
                 tj_steady=None if steady is None else steady.get(part.refdes),
-                power_peak=part.schedule.peak(0.0, duration) if duration > 0 else float(
-                    part.schedule.value(0.0)
-                ),
+                power_peak=part.schedule.peak(0.0, duration)
+                if duration > 0
+                else float(part.schedule.value(0.0)),
                 energy=part.schedule.energy(0.0, duration),
                 status=status_of(peak, part.tj_max, margin),
             )
@@ -326,10 +326,15 @@ def sanity_checks(
     bi = biot_number(board)
     checks.append(
         SanityCheck(
-            "board Biot number", bi, 0.1, 0.0, True, "-",
+            "board Biot number",
+            bi,
+            0.1,
+            0.0,
+            True,
+            "-",
             "through-thickness lumping of the bare board is valid for Bi < 0.1 "
             "(Incropera sec. 5.1); informational",
-        )  # fmt: skip
+        )
     )
     capacity = board_capacity(board)
     conductance = board_conductance(board)
@@ -337,15 +342,31 @@ def sanity_checks(
         q_out = float(traces.loss[-1] - loss_offset)
         p_in = float(p_total[-1])
         rel = abs(q_out - p_in) / max(p_in, 1e-30)
-        checks.append(SanityCheck(
-            "steady energy balance", q_out, p_in, 0.005, rel <= 0.005, "W",
-            f"heat leaving the board {q_out:.4g} W vs power {p_in:.4g} W ({rel:.2%})"))  # fmt: skip
+        checks.append(
+            SanityCheck(
+                "steady energy balance",
+                q_out,
+                p_in,
+                0.005,
+                rel <= 0.005,
+                "W",
+                f"heat leaving the board {q_out:.4g} W vs power {p_in:.4g} W ({rel:.2%})",
+            )
+        )
         rise = float(traces.mean[-1] - ambient)
         expect = p_in / conductance if not board.mounts and conductance > 0 else rise
         rel = abs(rise - expect) / max(abs(expect), 1e-12)
-        checks.append(SanityCheck(
-            "steady mean rise P/(hA)", rise, expect, LUMPED_TOLERANCE, rel <= LUMPED_TOLERANCE,
-            "K", f"field mean rise {rise:.3g} K vs lumped {expect:.3g} K ({rel:.1%})"))  # fmt: skip
+        checks.append(
+            SanityCheck(
+                "steady mean rise P/(hA)",
+                rise,
+                expect,
+                LUMPED_TOLERANCE,
+                rel <= LUMPED_TOLERANCE,
+                "K",
+                f"field mean rise {rise:.3g} K vs lumped {expect:.3g} K ({rel:.1%})",
+            )
+        )
         return tuple(checks)
     # energy balance over the run: the schedules' exact energy against the stored heat and
     # the boundary loss (trapezoid on the recorded steps; the loss is smooth in time)
@@ -353,33 +374,56 @@ def sanity_checks(
     stored = model_capacity * float(traces.mean[-1] - traces.mean[0])
     lost = float(np.trapezoid(traces.loss - loss_offset, t))
     closure = abs(delivered - stored - lost) / max(delivered, 1e-30)
-    checks.append(SanityCheck(
-        "energy balance", stored + lost, delivered, ENERGY_TOLERANCE,
-        closure <= ENERGY_TOLERANCE, "J",
-        f"delivered {delivered:.4g} J = stored {stored:.4g} J + lost {lost:.4g} J "
-        f"(closure {closure:.2%})"))  # fmt: skip
+    checks.append(
+        SanityCheck(
+            "energy balance",
+            stored + lost,
+            delivered,
+            ENERGY_TOLERANCE,
+            closure <= ENERGY_TOLERANCE,
+            "J",
+            f"delivered {delivered:.4g} J = stored {stored:.4g} J + lost {lost:.4g} J "
+            f"(closure {closure:.2%})",
+        )
+    )
     tau = capacity / conductance if conductance > 0 else math.inf
     lumped = lumped_mean_rise(t, p_total, capacity, conductance)
     field_rise = traces.mean - ambient
     scale = max(float(np.max(np.abs(lumped))), 1e-9)
     dev = float(np.max(np.abs(field_rise - lumped))) / scale
     ok = dev <= LUMPED_TOLERANCE or board.mounts != ()
-    checks.append(SanityCheck(
-        "lumped board model", float(field_rise[-1]), float(lumped[-1]), LUMPED_TOLERANCE, ok,
-        "K", f"tau = C/(hA) = {capacity:.4g} J/K / {conductance:.4g} W/K = {tau:.4g} s; final "
-        f"mean rise P/(hA) = {p_total[-1] / max(conductance, 1e-300):.3g} K; field vs lumped max "
-        f"deviation {dev:.1%} of the peak rise"
-        + ("; contacts to fixed temperatures make this informational" if board.mounts else "")))  # fmt: skip
+    checks.append(
+        SanityCheck(
+            "lumped board model",
+            float(field_rise[-1]),
+            float(lumped[-1]),
+            LUMPED_TOLERANCE,
+            ok,
+            "K",
+            f"tau = C/(hA) = {capacity:.4g} J/K / {conductance:.4g} W/K = {tau:.4g} s; final "
+            f"mean rise P/(hA) = {p_total[-1] / max(conductance, 1e-300):.3g} K; field vs "
+            f"lumped max deviation {dev:.1%} of the peak rise"
+            + ("; contacts to fixed temperatures make this informational" if board.mounts else ""),
+        )
+    )
     for refdes, pulses in (footprint_rise_in_pulses or {}).items():
         part = board.part(refdes)
         c_local = local_capacity(board, part)
         for start, energy, rise in pulses:
             bound = energy / c_local
             ok = rise <= bound * (1 + ADIABATIC_TOLERANCE)
-            checks.append(SanityCheck(
-                f"adiabatic bound {refdes} @ {start:.4g} s", rise, bound, ADIABATIC_TOLERANCE, ok,
-                "K", f"pulse energy {energy:.3g} J into {c_local:.3g} J/K (body + copper under "
-                f"the footprint): footprint rise {rise:.3g} K <= E/C = {bound:.3g} K"))  # fmt: skip
+            checks.append(
+                SanityCheck(
+                    f"adiabatic bound {refdes} @ {start:.4g} s",
+                    rise,
+                    bound,
+                    ADIABATIC_TOLERANCE,
+                    ok,
+                    "K",
+                    f"pulse energy {energy:.3g} J into {c_local:.3g} J/K (body + copper under "
+                    f"the footprint): footprint rise {rise:.3g} K <= E/C = {bound:.3g} K",
+                )
+            )
     return tuple(checks)
 
 

@@ -14,7 +14,7 @@ import sys
 import time
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from enum import Enum
+from enum import StrEnum
 from pathlib import Path
 from typing import Annotated, Any, TypeVar
 
@@ -32,6 +32,8 @@ app = typer.Typer(
     no_args_is_help=True,
     add_completion=False,
     pretty_exceptions_enable=False,
+    # plain click messages: usage errors stay one greppable line, as ours do
+    rich_markup_mode=None,
 )
 err_console = Console(stderr=True, highlight=False)
 T = TypeVar("T")
@@ -39,7 +41,7 @@ T = TypeVar("T")
 EXIT_OK, EXIT_LIMIT, EXIT_INPUT, EXIT_SOLVER = 0, 1, 2, 3
 
 
-class Backend(str, Enum):
+class Backend(StrEnum):
     """Linear solver backends."""
 
     auto = "auto"
@@ -51,7 +53,12 @@ class Backend(str, Enum):
 BoardPath = Annotated[
     Path,
     typer.Argument(
-        exists=True, dir_okay=False, readable=True, help="board file (TOML)", show_default=False
+        exists=True,
+        dir_okay=False,
+        readable=True,
+        help="board file (TOML)",
+        show_default=False,
+        metavar="BOARD_FILE",
     ),
 ]
 DebugOpt = Annotated[bool, typer.Option("--debug", help="show tracebacks of errors")]

@@ -90,14 +90,28 @@ def _features(board: Board) -> list[tuple[str, FloatArray]]:
 def element_sizes(board: Board) -> dict[str, float]:
     """Return the far-field and per-part element sizes, metres, from the geometry alone.
 
-    The far-field size is 1/25 of the square root of the board area (capped at a twentieth
-    of the smaller outline extent); a part's size is a third of its footprint's smaller side,
-    never below a tenth of the board thickness (finer in-plane than that adds nothing to a
-    prism model whose thinnest dimension is through the board).
+    The far field is resolved against the board's in-plane spreading (fin) length
+    ``L = sqrt(sum(k_xy t) / (h_top + h_bottom))``, over which a hot spot's rise decays: a
+    quarter of it, but no coarser than a twelfth of the square root of the board area nor a
+    sixth of the smaller outline extent, and no finer than the board thickness. A part's size
+    is a third of its footprint's smaller side, never below a tenth of the board thickness
+    (finer in-plane than that adds nothing to a prism model whose thinnest dimension is through
+    the board). All sizes are divided by ``run.mesh_refinement``.
     """
     ext = board.outline.max(axis=0) - board.outline.min(axis=0)
     scale = board.run.mesh_refinement
-    far = min(math.sqrt(board.area) / 25.0, float(ext.min()) / 10.0) / scale
+    sheet = sum(
+        (layer.fill * layer.material.k_inplane + (1 - layer.fill) * layer.resin.k_inplane)
+        * layer.thickness
+        if layer.kind == "copper"
+        else layer.material.k_inplane * layer.thickness
+        for layer in board.layers
+    )
+    h_sum = board.environment.h_top + board.environment.h_bottom
+    spread = math.sqrt(sheet / h_sum) if h_sum > 0 else math.inf
+    far = min(math.sqrt(board.area) / 12.0, float(ext.min()) / 6.0, spread / 4.0)
+    # never finer than the board is thick: a hot spot cannot vary faster than that in-plane
+    far = max(far, board.thickness) / scale
     sizes = {"far": far}
     floor = 0.1 * board.thickness
     for part in board.parts:

@@ -188,7 +188,7 @@ def _pulse_rises(model: Model, traces: Traces) -> dict[str, list[tuple[float, fl
 
 def run_check(
     board: Board,
-    options: RunOptions = RunOptions(),
+    options: RunOptions | None = None,
     progress: Callable[[float, int], None] | None = None,
     model: Model | None = None,
 ) -> CheckResult:
@@ -201,6 +201,7 @@ def run_check(
     progress : called with (simulated time s, steps) while stepping
     model : a prebuilt model to reuse (e.g. the same mesh for several variants)
     """
+    options = options or RunOptions()
     start = time.perf_counter()
     caught: list[str] = []
     with warnings.catch_warnings(record=True) as record:
@@ -212,8 +213,9 @@ def run_check(
             caught.append(str(w.message))
         else:
             warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
-    sanity_warnings = [f"sanity check '{c.name}' disagrees: {c.detail}" for c in result.sanity
-                       if not c.passed]  # fmt: skip
+    sanity_warnings = [
+        f"sanity check '{c.name}' disagrees: {c.detail}" for c in result.sanity if not c.passed
+    ]
     stats = dict(result.stats)
     stats["seconds_total"] = time.perf_counter() - start
     return CheckResult(
@@ -242,8 +244,9 @@ def _solve(
         "seconds_mesh": model.mesh.seconds,
         "seconds_assembly": s.seconds,
     }
-    final_power = np.array([float(p.schedule.value(run.duration, side="left"))
-                            for p in board.parts])  # fmt: skip
+    final_power = np.array(
+        [float(p.schedule.value(run.duration, side="left")) for p in board.parts]
+    )
     t0 = time.perf_counter()
     steady_field = solve_steady(ode, final_power, backend=options.backend)
     stats["seconds_steady"] = time.perf_counter() - t0
@@ -271,9 +274,15 @@ def _solve(
             backend=options.backend,
         )
         sol: Solution = integrate(
-            ode, T0, run.duration, s.P, opts,
-            snapshot_times=run.snapshot_times, peak_rows=tuple(rows), progress=progress,
-        )  # fmt: skip
+            ode,
+            T0,
+            run.duration,
+            s.P,
+            opts,
+            snapshot_times=run.snapshot_times,
+            peak_rows=tuple(rows),
+            progress=progress,
+        )
         st = sol.stats
         stats.update(
             steps=st.steps,
@@ -291,12 +300,17 @@ def _solve(
         hot_row = rows[hot_index]
         hot_t, hot_T = sol.peak_fields.get(hot_row, (run.duration, sol.final))
         hot = _hot_field(model, hot_T, hot_t, board.parts[hot_index].refdes)
-        candidates = [(hot_t, hot_T), (run.duration, sol.final), *sol.peak_fields.values(),
-                      *sol.snapshots.items()]  # fmt: skip
+        candidates = [
+            (hot_t, hot_T),
+            (run.duration, sol.final),
+            *sol.peak_fields.values(),
+            *sol.snapshots.items(),
+        ]
         lam_time, lam_field = max(candidates, key=lambda c: float(c[1][: s.n_fe].max()))
         lam_peak = float(lam_field[: s.n_fe].max())
-        series = _field_series(model, [(hot_t, hot_T), (run.duration, sol.final),
-                                       *sol.snapshots.items()])  # fmt: skip
+        series = _field_series(
+            model, [(hot_t, hot_T), (run.duration, sol.final), *sol.snapshots.items()]
+        )
     parts = part_results(board, traces, steady_map, margin)
     laminate = LaminateResult(
         peak=lam_peak,
@@ -305,10 +319,13 @@ def _solve(
         status=status_of(lam_peak, run.laminate_max, margin),
     )
     sanity = sanity_checks(
-        board, traces, model_capacity=s.total_capacity, loss_offset=s.loss_offset,
+        board,
+        traces,
+        model_capacity=s.total_capacity,
+        loss_offset=s.loss_offset,
         steady=options.steady,
         footprint_rise_in_pulses=None if options.steady else _pulse_rises(model, traces),
-    )  # fmt: skip
+    )
     return CheckResult(
         board_name=board.name,
         variant=board.variant,

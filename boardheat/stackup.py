@@ -156,8 +156,11 @@ def build_stackup(board: Board, shortest_time: float | None = None) -> Stackup:
         z_top = z[-1]
         for i in range(1, len(nodes)):
             # the last node closes the layer exactly, so rounding never shifts interfaces
-            z.append(z_top + layer.thickness * nodes[i] if i < len(nodes) - 1 else
-                     z_top + layer.thickness)  # fmt: skip
+            z.append(
+                z_top + layer.thickness * nodes[i]
+                if i < len(nodes) - 1
+                else z_top + layer.thickness
+            )
             seg_layer.append(index)
             props.append((k_xy, k_z, rho_c))
         bottom.append(len(z) - 1)
@@ -175,4 +178,3 @@ def build_stackup(board: Board, shortest_time: float | None = None) -> Stackup:
     for a in (out.z, out.seg_layer, out.k_xy, out.k_z, out.rho_c, out.layer_top, out.layer_bottom):
         a.setflags(write=False)
     return out
-

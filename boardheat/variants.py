@@ -44,9 +44,10 @@ def _solve(board: Board, mesh: Mesh, options: RunOptions) -> CheckResult:
 
 
 def run_variants(
-    path: str | Path, options: RunOptions = RunOptions(), jobs: int = 2
+    path: str | Path, options: RunOptions | None = None, jobs: int = 2
 ) -> tuple[list[CheckResult], list[Board]]:
     """Solve the base board and each variant; return results and boards, base first."""
+    options = options or RunOptions()
     boards = load_variants(path)
     meshes: dict[str, Mesh] = {}
     for board in boards:

@@ -25,12 +25,23 @@ def raw_board(**overrides: Any) -> dict[str, Any]:
             {"name": "core", "kind": "dielectric", "thickness_mm": 1.5},
             {"name": "bot", "kind": "copper", "thickness_um": 35.0, "fill": 0.5},
         ],
-        "environment": {"ambient_c": 25.0, "h_top_w_per_m2k": 10.0, "h_bottom_w_per_m2k": 10.0,
-                        "h_edge_w_per_m2k": 10.0},
+        "environment": {
+            "ambient_c": 25.0,
+            "h_top_w_per_m2k": 10.0,
+            "h_bottom_w_per_m2k": 10.0,
+            "h_edge_w_per_m2k": 10.0,
+        },
         "run": {"duration_s": 10.0},
         "part": [
-            {"refdes": "U1", "body_mm": [5.0, 5.0, 1.0], "x_mm": 20.0, "y_mm": 15.0,
-             "theta_jb_k_per_w": 10.0, "tj_max_c": 125.0, "power": 1.0},
+            {
+                "refdes": "U1",
+                "body_mm": [5.0, 5.0, 1.0],
+                "x_mm": 20.0,
+                "y_mm": 15.0,
+                "theta_jb_k_per_w": 10.0,
+                "tj_max_c": 125.0,
+                "power": 1.0,
+            },
         ],
     }
     out = copy.deepcopy(raw)

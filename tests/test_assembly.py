@@ -15,8 +15,12 @@ pytestmark = pytest.mark.gmsh
 
 
 def _adiabatic(raw):
-    raw["environment"] = {"ambient_c": 25.0, "h_top_w_per_m2k": 0.0, "h_bottom_w_per_m2k": 0.0,
-                          "h_edge_w_per_m2k": 0.0}
+    raw["environment"] = {
+        "ambient_c": 25.0,
+        "h_top_w_per_m2k": 0.0,
+        "h_bottom_w_per_m2k": 0.0,
+        "h_edge_w_per_m2k": 0.0,
+    }
     return raw
 
 
@@ -36,9 +40,13 @@ def test_conduction_annihilates_constants(bare):
 
 def test_capacity_sums_to_rho_c_volume(bare):
     board, _, _, s = bare
-    expected = sum(
-        float(layer_properties(layer, layer.fill)[2]) * layer.thickness for layer in board.layers
-    ) * board.area
+    expected = (
+        sum(
+            float(layer_properties(layer, layer.fill)[2]) * layer.thickness
+            for layer in board.layers
+        )
+        * board.area
+    )
     assert s.fe_capacity == pytest.approx(expected, rel=1e-12)
     assert s.total_capacity == pytest.approx(expected + board.parts[0].body_capacity, rel=1e-12)
 
@@ -73,20 +81,29 @@ def test_orthotropic_slab_profile_depends_only_on_kz():
     Fourier's law in a plane wall (Incropera & DeWitt sec. 3.1, eq. 3.4): the drop across a layer
     is q d / k_z, independent of the in-plane conductivity.
     """
+
     def rise(k_inplane):
         raw = _adiabatic(raw_board())
-        raw["materials"] = {"slab": {"k_inplane_w_per_mk": k_inplane, "k_through_w_per_mk": 0.5,
-                                     "density_kg_per_m3": 1000.0, "specific_heat_j_per_kgk": 1000.0}}
-        raw["stackup"] = [{"name": "s", "kind": "dielectric", "thickness_mm": 2.0,
-                           "material": "slab"}]
+        raw["materials"] = {
+            "slab": {
+                "k_inplane_w_per_mk": k_inplane,
+                "k_through_w_per_mk": 0.5,
+                "density_kg_per_m3": 1000.0,
+                "specific_heat_j_per_kgk": 1000.0,
+            }
+        }
+        raw["stackup"] = [
+            {"name": "s", "kind": "dielectric", "thickness_mm": 2.0, "material": "slab"}
+        ]
         raw["outline"] = {"polygon_mm": [[0, 0], [10, 0], [10, 10], [0, 10]]}
         raw["part"][0].update(x_mm=5.0, y_mm=5.0, body_mm=[9.99, 9.99, 1.0])
         raw["environment"]["h_bottom_w_per_m2k"] = 1e7
         board = make_board(raw)
         mesh = build_mesh(board)
         # a footprint that covers the whole plate: uniform flux
-        mesh = type(mesh)(mesh.points, mesh.triangles, mesh.edges,
-                          {"part:U1": np.arange(len(mesh.triangles))})
+        mesh = type(mesh)(
+            mesh.points, mesh.triangles, mesh.edges, {"part:U1": np.arange(len(mesh.triangles))}
+        )
         stack = build_stackup(board)
         s = assemble(mesh, stack, board)
         T = spla.spsolve(s.A.tocsc(), s.g + s.B @ np.array([1.0]))

@@ -41,17 +41,25 @@ def test_arrays_are_read_only(small_board):
         (lambda r: r["part"][0].pop("tj_max_c"), "part[U1].tj_max_c: missing"),
         (lambda r: r["part"][0].update(x_mm="20"), "part[U1].x_mm: found '20', expected"),
         (lambda r: r.update(stackup=[]), "stackup: found [], expected"),
-        (lambda r: r["outline"].update(polygon_mm=[[0, 0], [40, 30], [40, 0], [0, 30]]),
-         "crosses itself"),
-        (lambda r: r["part"][0].update(x_mm=39.0), "part[U1]: footprint at (39, 15) mm: it "
-         "reaches outside the board outline"),
-        (lambda r: r["part"][0].update(package="QFN-33-5x5", body_mm=None),
-         "not in geometry/packages (closest: 'QFN-32-5x5')"),
+        (
+            lambda r: r["outline"].update(polygon_mm=[[0, 0], [40, 30], [40, 0], [0, 30]]),
+            "crosses itself",
+        ),
+        (
+            lambda r: r["part"][0].update(x_mm=39.0),
+            "part[U1]: footprint at (39, 15) mm: it reaches outside the board outline",
+        ),
+        (
+            lambda r: r["part"][0].update(package="QFN-33-5x5", body_mm=None),
+            "not in geometry/packages (closest: 'QFN-32-5x5')",
+        ),
         (lambda r: r["stackup"][1].update(material="fr5"), "stackup[core].material: 'fr5'"),
         (lambda r: r["part"][0].update(colour="red"), "part[U1].colour: unknown key"),
         (lambda r: r["stackup"][0].pop("fill"), "stackup[top]: found"),
-        (lambda r: r["environment"].update(h_top_w_per_m2k=-1.0),
-         "environment.h_top_w_per_m2k: found -1.0, expected"),
+        (
+            lambda r: r["environment"].update(h_top_w_per_m2k=-1.0),
+            "environment.h_top_w_per_m2k: found -1.0, expected",
+        ),
         (lambda r: r["run"].update(dt_s=100.0), "run.dt_s: 100 s; expected <= duration_s"),
         (lambda r: r["part"][0].update(power={"steps": [[0.0, -1.0]]}), "part[U1].power"),
     ],
@@ -79,7 +87,9 @@ def test_clockwise_outline_is_reoriented():
     raw = raw_board()
     raw["outline"]["polygon_mm"] = [[0, 0], [0, 30], [40, 30], [40, 0]]
     poly = make_board(raw).outline
-    signed = 0.5 * np.sum(poly[:, 0] * np.roll(poly[:, 1], -1) - poly[:, 1] * np.roll(poly[:, 0], -1))
+    signed = 0.5 * np.sum(
+        poly[:, 0] * np.roll(poly[:, 1], -1) - poly[:, 1] * np.roll(poly[:, 0], -1)
+    )
     assert signed > 0
 
 
@@ -106,9 +116,18 @@ def test_rotation_turns_the_footprint():
 
 
 def test_variant_overrides_by_field_path():
-    raw = raw_board(variant=[{"name": "heavy", "set": {"stackup.top.weight_oz": 2,
-                                                        "part.U1.power": 2.5,
-                                                        "environment.h_top_w_per_m2k": 15.0}}])
+    raw = raw_board(
+        variant=[
+            {
+                "name": "heavy",
+                "set": {
+                    "stackup.top.weight_oz": 2,
+                    "part.U1.power": 2.5,
+                    "environment.h_top_w_per_m2k": 15.0,
+                },
+            }
+        ]
+    )
     changed = apply_variant(raw, "heavy", make_board(raw_board()).source)
     b = make_board(changed)
     assert b.layers[0].thickness == pytest.approx(2 * 34.8e-6)
@@ -149,8 +168,17 @@ def test_toml_syntax_error_is_reported(tmp_path):
 
 
 def test_via_field_fraction_is_the_barrel_area_over_pitch_squared():
-    raw = raw_board(via_field=[{"name": "v1", "rect": {"center_mm": [20, 15], "size_mm": [4, 4]},
-                                "drill_mm": 0.3, "plating_um": 25.0, "pitch_mm": 1.0}])
+    raw = raw_board(
+        via_field=[
+            {
+                "name": "v1",
+                "rect": {"center_mm": [20, 15], "size_mm": [4, 4]},
+                "drill_mm": 0.3,
+                "plating_um": 25.0,
+                "pitch_mm": 1.0,
+            }
+        ]
+    )
     via = make_board(raw).via_fields[0]
     r_o, r_i = 0.15e-3, 0.125e-3
     assert via.copper_fraction == pytest.approx(math.pi * (r_o**2 - r_i**2) / 1e-6)

@@ -20,22 +20,47 @@ pytestmark = pytest.mark.gmsh
 
 
 def _material(name, k, rho, cp, k_z=None):
-    return {name: {"k_inplane_w_per_mk": k, "k_through_w_per_mk": k if k_z is None else k_z,
-                   "density_kg_per_m3": rho, "specific_heat_j_per_kgk": cp}}
+    return {
+        name: {
+            "k_inplane_w_per_mk": k,
+            "k_through_w_per_mk": k if k_z is None else k_z,
+            "density_kg_per_m3": rho,
+            "specific_heat_j_per_kgk": cp,
+        }
+    }
 
 
 def _plate(size_mm, thickness_mm, material, h, h_edge, fp_mm, power, duration=1.0, **run):
     raw = raw_board()
     raw["materials"] = material
-    raw["stackup"] = [{"name": "plate", "kind": "dielectric", "thickness_mm": thickness_mm,
-                       "material": next(iter(material))}]
+    raw["stackup"] = [
+        {
+            "name": "plate",
+            "kind": "dielectric",
+            "thickness_mm": thickness_mm,
+            "material": next(iter(material)),
+        }
+    ]
     s = size_mm
     raw["outline"] = {"polygon_mm": [[0, 0], [s, 0], [s, s], [0, s]]}
-    raw["environment"] = {"ambient_c": 20.0, "h_top_w_per_m2k": h, "h_bottom_w_per_m2k": h,
-                          "h_edge_w_per_m2k": h_edge}
-    raw["part"] = [{"refdes": "S1", "body_mm": [fp_mm, fp_mm, 0.5], "x_mm": s / 2, "y_mm": s / 2,
-                    "theta_jb_k_per_w": 0.0, "body_heat_capacity_j_per_k": 0.0,
-                    "tj_max_c": 500.0, "power": power}]
+    raw["environment"] = {
+        "ambient_c": 20.0,
+        "h_top_w_per_m2k": h,
+        "h_bottom_w_per_m2k": h,
+        "h_edge_w_per_m2k": h_edge,
+    }
+    raw["part"] = [
+        {
+            "refdes": "S1",
+            "body_mm": [fp_mm, fp_mm, 0.5],
+            "x_mm": s / 2,
+            "y_mm": s / 2,
+            "theta_jb_k_per_w": 0.0,
+            "body_heat_capacity_j_per_k": 0.0,
+            "tj_max_c": 500.0,
+            "power": power,
+        }
+    ]
     raw["run"] = {"duration_s": duration, **run}
     return make_board(raw)
 
@@ -154,19 +179,34 @@ def _plane_wall_top(t, q, k, alpha, length, terms=200):
         - 2/pi^2 sum (-1)^n/n^2 exp(-alpha n^2 pi^2 t/L^2) cos(n pi x/L) ], evaluated at x = L.
     """
     n = np.arange(1, terms + 1)
-    series = np.sum((-1.0) ** n / n**2 * np.exp(-alpha * n**2 * np.pi**2 * t / length**2)
-                    * np.cos(n * np.pi))
+    series = np.sum(
+        (-1.0) ** n / n**2 * np.exp(-alpha * n**2 * np.pi**2 * t / length**2) * np.cos(n * np.pi)
+    )
     return q * alpha * t / (k * length) + q * length / k * (1 / 3 - 2 / np.pi**2 * series)
 
 
 def test_plane_wall_series_solution_at_two_times():
     """Through-thickness transient (flux on top, adiabatic bottom) within 2 % at two times."""
     mat = _material("wall", 1.0, 2000.0, 1000.0)
-    board = _plate(10.0, 2.0, mat, 0.0, 0.0, 9.0, 1.0, duration=4.0, rtol=1e-4, atol_k=1e-4,
-                   max_segment_um=50.0, snapshot_s=[0.4], mesh_refinement=0.2)
+    board = _plate(
+        10.0,
+        2.0,
+        mat,
+        0.0,
+        0.0,
+        9.0,
+        1.0,
+        duration=4.0,
+        rtol=1e-4,
+        atol_k=1e-4,
+        max_segment_um=50.0,
+        snapshot_s=[0.4],
+        mesh_refinement=0.2,
+    )
     mesh = build_mesh(board)
-    whole = type(mesh)(mesh.points, mesh.triangles, mesh.edges,
-                       {"part:S1": np.arange(len(mesh.triangles))})
+    whole = type(mesh)(
+        mesh.points, mesh.triangles, mesh.edges, {"part:S1": np.arange(len(mesh.triangles))}
+    )
     model = build_model(board, mesh=whole)
     result = run_check(board, RunOptions(), model=model)
     t, top = result.traces.t, result.traces.board[:, 0] - board.environment.ambient

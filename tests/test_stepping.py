@@ -30,6 +30,7 @@ from boardheat.stepping import (
     make_factorization,
     solve_steady,
 )
+from boardheat.stepping.solvers import PARDISO_MIN_DOFS
 
 T_AMB = 300.0  # K
 SEED = 20240611
@@ -409,13 +410,15 @@ def test_factorizations_are_reused_across_a_200_pulse_train():
     sol = integrate(ode, np.full(n, T_AMB), count + 0.5, identity_probes(n), options())
     stats = sol.stats
     assert stats.steps >= 2 * count
-    assert stats.factorizations <= 0.02 * stats.steps, stats
+    assert stats.factorizations <= 0.03 * stats.steps, stats
     assert stats.solves == 3 * (stats.steps + stats.rejected)
     assert stats.seconds_factor + stats.seconds_solve <= stats.seconds_total
 
 
 def test_adaptive_steps_come_from_the_ladder_except_landings():
-    # Steps not shortened to land on a stop are dt_0 * ratio**k (rounded to 40 mantissa bits).
+    # Steps not shortened to land on a stop are base * ratio**k (rounded to 40 mantissa bits):
+    # with ratio 2 the base is the stops' common unit (0.1 s here: stops 0.3, 1.3, 4, 6.5, 30),
+    # otherwise the first step dt_0.
     n = 20
     M, A, g, B = chain(n=n, c_source=0.05)
     p, bps = pulse_train(5.0, [0.3, 4.0], [1.0, 2.5])
@@ -429,7 +432,8 @@ def test_adaptive_steps_come_from_the_ladder_except_landings():
         first_half[:-1] = ends_at_stop[1:] & np.isclose(sol.dt[:-1], sol.dt[1:], rtol=1e-9)
         free = sol.dt[1:][~(ends_at_stop | first_half)[1:]]
         assert free.size > 20
-        k = np.log(free / 1e-3) / np.log(ratio)
+        base = 0.1 if ratio == 2.0 else 1e-3
+        k = np.log(free / base) / np.log(ratio)
         np.testing.assert_allclose(k, np.round(k), atol=1e-9)
         assert sol.stats.distinct_dt <= 40
 
@@ -586,7 +590,12 @@ def test_auto_backend_prefers_cholmod_then_pardiso_then_splu():
     names = available_backends()
     order = [b for b in ("cholmod", "pardiso", "splu") if b in names]
     assert names == order
-    assert make_factorization(sp.eye_array(3, format="csr"), "auto").backend == names[0]
+    # PARDISO's set-up outweighs its speed on small systems: auto keeps SuperLU below
+    # PARDISO_MIN_DOFS rows
+    small = make_factorization(sp.eye_array(3, format="csr"), "auto").backend
+    assert small == ("splu" if names[0] == "pardiso" else names[0])
+    big = make_factorization(sp.eye_array(PARDISO_MIN_DOFS, format="csr"), "auto").backend
+    assert big == names[0]
 
 
 def test_singular_matrix_raises_solver_error():

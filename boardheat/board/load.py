@@ -46,8 +46,14 @@ ZERO_C = 273.15
 #: epoxy mould compound volumetric heat capacity when a package file gives none (recalled).
 DEFAULT_MOLD_RHO_C = 1.6e6
 #: list sections of the file and the key that names their entries
-NAMED_LISTS = {"stackup": "name", "part": "refdes", "pour": "name", "via_field": "name",
-               "mount": "name", "variant": "name"}  # fmt: skip
+NAMED_LISTS = {
+    "stackup": "name",
+    "part": "refdes",
+    "pour": "name",
+    "via_field": "name",
+    "mount": "name",
+    "variant": "name",
+}
 
 
 def geometry_dir() -> Path:
@@ -88,9 +94,7 @@ def load_package(name: str, where: str) -> dict[str, Any]:
     """Return the raw package outline record ``name`` from ``geometry/packages``."""
     names = list_packages()
     if name not in names:
-        raise BoardFileError(
-            f"{where}: {name!r} not in geometry/packages{_closest(name, names)}"
-        )
+        raise BoardFileError(f"{where}: {name!r} not in geometry/packages{_closest(name, names)}")
     path = geometry_dir() / "packages" / f"{name}.toml"
     data = _read_toml(path, "package outline")
     for key in ("body_mm", "footprint_mm"):
@@ -252,7 +256,9 @@ def _circle(center_mm: list[float], diameter_mm: float) -> FloatArray:
     n = min(n, 96)
     ang = np.linspace(0.0, 2 * np.pi, n, endpoint=False)
     r = diameter_mm / 2 * MM
-    pts = np.column_stack([center_mm[0] * MM + r * np.cos(ang), center_mm[1] * MM + r * np.sin(ang)])
+    pts = np.column_stack(
+        [center_mm[0] * MM + r * np.cos(ang), center_mm[1] * MM + r * np.sin(ang)]
+    )
     return frozen_array(pts)
 
 
@@ -270,11 +276,13 @@ def _outline(spec: schema.OutlineSpec, path: Path) -> tuple[FloatArray, tuple[Fl
         dxf_path = (path.parent / spec.dxf).resolve()
         dxf = read_dxf_outline(dxf_path, layer=spec.dxf_layer, where=f"{where}.dxf")
         outer = frozen_array(dxf.outer)
-        holes = tuple(frozen_array(h) for h in dxf.holes)
-        return outer, holes
+        return outer, tuple(frozen_array(h) for h in dxf.holes)
     if spec.file is not None:
-        candidates = [path.parent / spec.file, geometry_dir() / "boards" / spec.file,
-                      geometry_dir() / "boards" / f"{spec.file}.toml"]  # fmt: skip
+        candidates = [
+            path.parent / spec.file,
+            geometry_dir() / "boards" / spec.file,
+            geometry_dir() / "boards" / f"{spec.file}.toml",
+        ]
         found = next((c for c in candidates if c.is_file()), None)
         if found is None:
             names = sorted(p.stem for p in (geometry_dir() / "boards").glob("*.toml"))
@@ -294,7 +302,7 @@ def _outline(spec: schema.OutlineSpec, path: Path) -> tuple[FloatArray, tuple[Fl
         return _outline(sub, found)
     assert spec.polygon_mm is not None
     outer = _polygon(spec.polygon_mm, f"{where}.polygon_mm")
-    holes: list[FloatArray] = []
+    cut: list[FloatArray] = []
     for i, hole in enumerate(spec.holes):
         hw = f"{where}.holes[{i}]"
         if hole.circle is not None:
@@ -304,11 +312,11 @@ def _outline(spec: schema.OutlineSpec, path: Path) -> tuple[FloatArray, tuple[Fl
             poly = _polygon(hole.polygon_mm, f"{hw}.polygon_mm")
         if not points_in_polygon(poly, outer).all():
             raise BoardFileError(f"{hw}: the hole reaches outside the outline; expected it inside")
-        for j, other in enumerate(holes):
+        for j, other in enumerate(cut):
             if points_in_polygon(poly, other).any() or points_in_polygon(other, poly).any():
                 raise BoardFileError(f"{hw}: overlaps holes[{j}]; expected separate holes")
-        holes.append(poly)
-    return outer, tuple(holes)
+        cut.append(poly)
+    return outer, tuple(cut)
 
 
 def _inside_board(poly: FloatArray, outline: FloatArray, holes: tuple[FloatArray, ...]) -> str:
@@ -386,7 +394,9 @@ def _part(
     if spec.package is not None:
         pkg = load_package(spec.package, f"{where}.package")
     body_mm = spec.body_mm or pkg.get("body_mm")
-    footprint_mm = spec.footprint_mm or pkg.get("footprint_mm") or (body_mm[:2] if body_mm else None)
+    footprint_mm = (
+        spec.footprint_mm or pkg.get("footprint_mm") or (body_mm[:2] if body_mm else None)
+    )
     if body_mm is None or footprint_mm is None:
         raise BoardFileError(
             f"{where}: no size; expected 'package' (one of geometry/packages) or 'body_mm'"
@@ -454,9 +464,12 @@ def _layer_lookup(layers: tuple[Layer, ...], name: str, where: str, copper: bool
 
 
 def _features(
-    spec: schema.BoardSpec, layers: tuple[Layer, ...], path: Path, outline: FloatArray,
+    spec: schema.BoardSpec,
+    layers: tuple[Layer, ...],
+    path: Path,
+    outline: FloatArray,
     holes: tuple[FloatArray, ...],
-) -> tuple[tuple[Pour, ...], tuple[ViaField, ...], tuple[Mount, ...]]:  # fmt: skip
+) -> tuple[tuple[Pour, ...], tuple[ViaField, ...], tuple[Mount, ...]]:
     names: set[str] = set()
 
     def unique(kind: str, name: str) -> str:
@@ -498,9 +511,17 @@ def _features(
         if fraction >= 0.9:
             raise BoardFileError(f"{where}: barrel copper fills {fraction:.0%}; expected < 90 %")
         vias.append(
-            ViaField(name=v.name, region=region, first_layer=first, last_layer=last,
-                     copper_fraction=fraction, drill=drill, plating=plating, pitch=pitch,
-                     filled=v.filled)  # fmt: skip
+            ViaField(
+                name=v.name,
+                region=region,
+                first_layer=first,
+                last_layer=last,
+                copper_fraction=fraction,
+                drill=drill,
+                plating=plating,
+                pitch=pitch,
+                filled=v.filled,
+            )
         )
     mounts = []
     for m in spec.mount:
@@ -516,8 +537,15 @@ def _features(
         else:
             assert m.h_contact_w_per_m2k is not None
             conductance = m.h_contact_w_per_m2k * contact_area
-        mounts.append(Mount(name=m.name, region=region, side=m.side,
-                            temperature=m.temperature_c + ZERO_C, conductance=conductance))  # fmt: skip
+        mounts.append(
+            Mount(
+                name=m.name,
+                region=region,
+                side=m.side,
+                temperature=m.temperature_c + ZERO_C,
+                conductance=conductance,
+            )
+        )
     return tuple(pours), tuple(vias), tuple(mounts)
 
 
@@ -603,9 +631,7 @@ def load_board(path: str | Path, variant: str | None = None) -> Board:
             except ValidationError as err:
                 first = err.errors()[0]
                 loc = ("variant", i, *first["loc"])
-                raise BoardFileError(
-                    f"{path}: {_path_text(loc, raw)}: {_explain(first)}"
-                ) from err
+                raise BoardFileError(f"{path}: {_path_text(loc, raw)}: {_explain(first)}") from err
         return board
     return board_from_raw(apply_variant(raw, variant, path), path, variant=variant)
 

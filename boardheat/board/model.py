@@ -15,7 +15,7 @@ from typing import Literal
 import numpy as np
 import numpy.typing as npt
 
-from boardheat.junction import CauerLadder, FosterNetwork
+from boardheat.junction import CauerLadder
 from boardheat.schedules import Schedule
 
 FloatArray = npt.NDArray[np.float64]
@@ -49,7 +49,7 @@ class Material:
 
 @dataclass(frozen=True)
 class Layer:
-    """One stackup layer; ``fill`` is the copper area fraction of a copper layer (0 for dielectric)."""
+    """One stackup layer; ``fill`` is a copper layer's copper area fraction (0: dielectric)."""
 
     name: str
     kind: Literal["copper", "dielectric"]
@@ -140,7 +140,7 @@ class Part:
     junction_source: Literal["theta_jb", "cauer", "foster"] = "theta_jb"
 
     def footprint_polygon(self, size: FloatArray | None = None) -> FloatArray:
-        """Return the rotated footprint (or ``size``) rectangle, (4, 2) metres, counter-clockwise."""
+        """Return the rotated footprint (or ``size``) rectangle, (4, 2) metres, CCW."""
         sx, sy = (self.footprint if size is None else size) / 2.0
         corners = np.array([[-sx, -sy], [sx, -sy], [sx, sy], [-sx, sy]])
         c, s = np.cos(self.rotation), np.sin(self.rotation)

@@ -61,6 +61,28 @@ class _Ladder:
         return self.floor(below * self._ratio * (1.0 + 1e-6))
 
 
+def ladder_unit(stops: FloatArray, ratio: float) -> float | None:
+    """Return the largest time unit 10^-j s (j = 0..9) of which every stop is a multiple.
+
+    Board schedules are written in round times (5 ms, 100 ms, 60 s), so their breakpoints
+    share such a unit. A step ladder anchored at it, ``unit * 2**k``, reaches every stop by a
+    sum of ladder steps (binary decomposition of the gap), so landing on a breakpoint needs no
+    matrix off the ladder. Only a ratio of 2 has that property; None otherwise, or when no
+    unit fits (then landing steps are taken off the ladder).
+
+    >>> ladder_unit(np.array([0.005, 0.025, 60.05, 120.0]), 2.0)
+    0.001
+    """
+    if ratio != 2.0 or stops.size == 0:
+        return None
+    for j in range(10):
+        unit = 10.0**-j
+        multiples = stops / unit
+        if np.all(np.abs(multiples - np.round(multiples)) <= 1e-7 * np.maximum(1.0, multiples)):
+            return unit
+    return None
+
+
 def _starting_step(
     m_lump: FloatArray,
     A: Any,
@@ -91,15 +113,20 @@ def _starting_step(
 class _Controller:
     """Step-size choice: ladder rungs, landing on stops, rejection, restart after a jump."""
 
-    def __init__(self, opts: StepperOptions, first: float, t_end: float) -> None:
+    def __init__(
+        self, opts: StepperOptions, first: float, t_end: float, unit: float | None = None
+    ) -> None:
         self.adaptive = opts.fixed_dt is None
         self._opts = opts
         self.floor_hits = 0
         self.first_floor_time = math.nan
         self._learned_restart: float | None = None
         self._after_jump = False
-        self._ladder = _Ladder(min(max(first, opts.dt_min), opts.dt_max, t_end), opts.ladder_ratio)
-        self.h = self._ladder.base
+        start = min(max(first, opts.dt_min), opts.dt_max, t_end)
+        self._unit = unit
+        self._seen_gaps: set[float] = set()
+        self._ladder = _Ladder(unit if unit is not None else start, opts.ladder_ratio)
+        self.h = self._ladder.floor(start) if unit is not None else self._ladder.base
         self._h_floor = self._ladder.ceil(opts.dt_min)
         self._h_cap = self._ladder.floor(opts.dt_max) if math.isfinite(opts.dt_max) else math.inf
         self._fixed_dt = opts.fixed_dt if opts.fixed_dt is not None else math.inf
@@ -109,7 +136,19 @@ class _Controller:
     def propose(self, t: float, t_stop: float) -> tuple[float, float, bool]:
         """Return (dt used in the formulas, time reached, whether the step lands on t_stop)."""
         gap = t_stop - t
-        if self.adaptive:
+        recurring = False
+        if self.adaptive and self.h >= gap * (1.0 - 1e-7):
+            # a landing gap met before (periodic schedules repeat them) gets its own matrix,
+            # factored once; a new one is decomposed into rungs so it needs no new matrix
+            key = _quantize(gap)
+            recurring = key in self._seen_gaps
+            self._seen_gaps.add(key)
+        if self.adaptive and self._on_ladder(gap) and not recurring:
+            # binary decomposition of the gap: the largest rung that fits, until it lands
+            step = self._ladder.floor(min(self.h, gap) * (1.0 + 1e-7))
+            landing = step >= gap * (1.0 - 1e-7)
+            t_new = t_stop if landing else t + step
+        elif self.adaptive:
             landing = self.h >= gap * (1.0 - 1e-6)
             step = gap if landing else (0.5 * gap if 2.0 * self.h > gap else self.h)
             t_new = t_stop if landing else t + _quantize(step)
@@ -126,6 +165,13 @@ class _Controller:
                 "expected dt_min well above the spacing of floats at t"
             )
         return _quantize(step), t_new, landing
+
+    def _on_ladder(self, gap: float) -> bool:
+        """Return whether ``gap`` is a whole number of ladder units (exact landing by rungs)."""
+        if self._unit is None:
+            return False
+        multiple = gap / self._unit
+        return abs(multiple - round(multiple)) <= 1e-7 * max(1.0, multiple) and round(multiple) > 0
 
     def rejects(self, t: float, dt: float, err: float) -> bool:
         """Return True (and shrink the step) if a step with normalized error err is redone."""
@@ -145,7 +191,7 @@ class _Controller:
         if not self.adaptive:
             self._segment_done += 1
             return
-        clipped = dt < self.h * (1.0 - 1e-9)
+        clipped = dt < self.h * (1.0 - 1e-7)
         grow = _FAC_MAX if err <= 0.0 else _SAFETY * err ** (-1.0 / 3.0)
         grow = min(_FAC_MAX, max(_FAC_MIN, grow))
         proposal = dt * grow

@@ -34,6 +34,7 @@ from boardheat.stepping.control import (
     GAMMA,
     _Controller,
     _starting_step,
+    ladder_unit,
 )
 from boardheat.stepping.problem import (
     FloatArray,
@@ -336,7 +337,7 @@ def integrate(
 
     opts = options
     trbdf2 = opts.method == "trbdf2"
-    backend = _resolve_backend(opts.backend)
+    backend = _resolve_backend(opts.backend, n)
     factors = _FactorCache(ode.M, ode.A, _D if trbdf2 else 1.0, backend, opts.cache_size)
     stops, breakpoints = _stops(ode, snaps, t_end)
     T_ref = np.full(n, opts.t_ref) if opts.t_ref is not None else T.copy()
@@ -351,7 +352,8 @@ def integrate(
     def guess() -> float:
         return _starting_step(system.m_lump, ode.A, T, F, T_ref, opts)
 
-    control = _Controller(opts, opts.dt_initial or guess(), t_end)
+    unit = ladder_unit(stops, opts.ladder_ratio)
+    control = _Controller(opts, opts.dt_initial or guess(), t_end, unit)
     attempts = 0
     i_stop = 0
     while i_stop < stops.size:

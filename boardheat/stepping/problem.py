@@ -129,7 +129,7 @@ class StepperOptions:
     restart_dt: float | None = None
     backend: BackendName = "auto"
     max_steps: int = 2_000_000
-    cache_size: int = 12
+    cache_size: int = 40
 
     def __post_init__(self) -> None:
         def bad(name: str, expected: str) -> SolverError:
