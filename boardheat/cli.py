@@ -36,6 +36,13 @@ app = typer.Typer(
     rich_markup_mode=None,
 )
 err_console = Console(stderr=True, highlight=False)
+
+
+def _out_console() -> Console:
+    """Return the stdout console: terminal width on a terminal, 120 columns in logs and CI."""
+    return Console(highlight=False, width=None if sys.stdout.isatty() else 120)
+
+
 T = TypeVar("T")
 
 EXIT_OK, EXIT_LIMIT, EXIT_INPUT, EXIT_SOLVER = 0, 1, 2, 3
@@ -147,7 +154,7 @@ def check(
     )
     with _progress(f"solving {board.name}", quiet) as progress:
         result = _guard(debug, lambda: run_check(board, options, progress))
-    console = Console(highlight=False)
+    console = _out_console()
     if quiet:
         console.print(f"{board.name}: {result.verdict}", markup=False)
     else:
@@ -210,7 +217,7 @@ def compare(
     _setup_logging(verbose)
     options = RunOptions(steady=steady, verbose=verbose)
     results, boards = _guard(debug, lambda: run_variants(board_file, options, jobs=jobs))
-    console = Console(highlight=False)
+    console = _out_console()
     render_compare(results, console)
     if out is not None:
         _guard(debug, lambda: write_compare(results, boards[0], out))

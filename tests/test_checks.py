@@ -37,8 +37,10 @@ def test_time_above_interpolates_crossings():
 
 
 def test_lumped_rise_matches_exponential_and_ode():
-    """C dtheta/dt = P(t) - G theta (Incropera & DeWitt sec. 5.3): exact for a step, and a ramp
-    checked against scipy's Radau at rtol 1e-10 (tolerance 1e-8 K)."""
+    """Lumped model C dtheta/dt = P(t) - G theta (Incropera & DeWitt sec. 5.3).
+
+    Exact for a step; a ramp checked against scipy's Radau at rtol 1e-10 (tolerance 1e-8 K).
+    """
     t = np.linspace(0.0, 50.0, 201)
     c, g = 10.0, 0.5
     step = lumped_mean_rise(t, np.full_like(t, 2.0), c, g)
