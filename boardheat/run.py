@@ -162,25 +162,29 @@ def _field_series(model: Model, fields: list[tuple[float, FloatArray]]) -> Field
 
 
 def _pulse_rises(model: Model, traces: Traces) -> dict[str, list[tuple[float, float, float]]]:
-    """Find pulses shorter than each part's local diffusion time and the field's rise in them."""
+    """Find up to three short pulses per part and the footprint's rise during each.
+
+    A pulse is short when it lasts less than the part's local diffusion time; the search is
+    vectorised over the schedule's intervals.
+    """
     out: dict[str, list[tuple[float, float, float]]] = {}
     board = model.board
     for j, part in enumerate(board.parts):
-        t_diff = local_diffusion_time(board, part)
         bp = part.schedule.breakpoints(board.run.duration)
+        if bp.size < 2:
+            continue
+        a, b = bp[:-1], bp[1:]
+        p_in = part.schedule.value(0.5 * (a + b))
+        p_before = part.schedule.value(a, side="left")
+        short = (b - a < local_diffusion_time(board, part)) & (p_in > p_before) & (p_in > 0)
+        ia = np.searchsorted(traces.t, a)
+        ib = np.searchsorted(traces.t, b)
+        recorded = (ib < len(traces.t)) & (ia < len(traces.t))
+        recorded[recorded] &= traces.t[ia[recorded]] == a[recorded]
         found = []
-        for a, b in zip(bp[:-1], bp[1:], strict=True):
-            p_in = float(part.schedule.value(0.5 * (a + b)))
-            p_before = float(part.schedule.value(a, side="left"))
-            if b - a >= t_diff or p_in <= p_before or p_in <= 0:
-                continue
-            ia, ib = np.searchsorted(traces.t, [a, b])
-            if ib >= len(traces.t) or traces.t[ia] != a:
-                continue
-            rise = float(traces.board[ib, j] - traces.board[ia, j])
-            found.append((float(a), part.schedule.energy(float(a), float(b)), rise))
-            if len(found) >= 3:
-                break
+        for k in np.flatnonzero(short & recorded)[:3]:
+            rise = float(traces.board[ib[k], j] - traces.board[ia[k], j])
+            found.append((float(a[k]), part.schedule.energy(float(a[k]), float(b[k])), rise))
         if found:
             out[part.refdes] = found
     return out
