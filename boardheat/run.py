@@ -217,6 +217,20 @@ def run_check(
             caught.append(str(w.message))
         else:
             warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+    settle_warnings = [
+        f"{p.refdes}: still heating at the end of the run (peak at {p.t_peak:.4g} s); held at "
+        f"its final power it settles {p.tj_steady - p.tj_peak:.1f} K hotter, "
+        + (
+            f"{p.tj_steady - p.tj_max:.1f} K above its limit"
+            if p.tj_steady > p.tj_max
+            else f"{p.tj_max - p.tj_steady:.1f} K below its limit"
+        )
+        for p in result.parts
+        if not result.steady
+        and p.tj_steady is not None
+        and p.t_peak >= result.duration * (1 - 1e-9)
+        and p.tj_steady > p.tj_peak + result.margin
+    ]
     sanity_warnings = [
         f"sanity check '{c.name}' disagrees: {c.detail}" for c in result.sanity if not c.passed
     ]
@@ -225,7 +239,7 @@ def run_check(
     return CheckResult(
         **{
             **result.__dict__,
-            "warnings": tuple(caught + sanity_warnings),
+            "warnings": tuple(caught + settle_warnings + sanity_warnings),
             "stats": stats,
         }
     )
