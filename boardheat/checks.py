@@ -227,6 +227,17 @@ def board_capacity(board: Board) -> float:
         layer = board.layers[board.layer_index(pour.layer)]
         d_rc = (pour.fill - layer.fill) * (layer.material.rho_c - layer.resin.rho_c)
         total += d_rc * layer.thickness * _clipped_area(pour.region.polygon, board)
+    copper = next((layer.material for layer in board.layers if layer.kind == "copper"), None)
+    cu_rho_c = copper.rho_c if copper is not None else 3.44e6
+    for via in board.via_fields:
+        via_area = _clipped_area(via.region.polygon, board)
+        for layer in board.layers[via.first_layer : via.last_layer + 1]:
+            rc = (
+                layer.fill * layer.material.rho_c + (1 - layer.fill) * layer.resin.rho_c
+                if layer.kind == "copper"
+                else layer.material.rho_c
+            )
+            total += via.copper_fraction * (cu_rho_c - rc) * layer.thickness * via_area
     total += sum(p.body_capacity for p in board.parts)
     total += sum(float(np.sum(p.junction.C)) for p in board.parts if p.junction is not None)
     return total

@@ -1,9 +1,9 @@
 """Design variants: solve the base board and every ``[[variant]]``, sharing meshes.
 
 Input: a board file with ``[[variant]]`` sections. Output: one
-:class:`~boardheat.checks.CheckResult` per board (base first). Variants whose geometry equals
-another's (same outline, footprints, pours, via fields, contacts and mesh density) reuse its
-mesh; copper weights, fills, heat transfer coefficients and powers change only the assembled
+:class:`~boardheat.checks.CheckResult` per board (base first). Variants whose mesh would equal
+another's (same outline, footprints, pours, via fields, contacts and element sizes) reuse it;
+copper weights, fills, heat transfer coefficients and powers then change only the assembled
 matrices. Variants are solved in parallel worker processes.
 """
 
@@ -18,12 +18,19 @@ import numpy as np
 
 from boardheat.board import Board, load_variants
 from boardheat.checks import CheckResult
-from boardheat.meshing import Mesh, build_mesh
+from boardheat.meshing import Mesh, build_mesh, element_sizes
 from boardheat.run import RunOptions, build_model, run_check
 
 
 def geometry_key(board: Board) -> str:
-    """Return a digest of everything the 2D mesh depends on."""
+    """Return a digest of everything the 2D mesh depends on.
+
+    That is the outline and holes, every embedded region (name and polygon, in the order the
+    mesher adds them) and the element sizes. The sizes are hashed as computed by
+    :func:`~boardheat.meshing.element_sizes`, because besides the geometry they follow from
+    the stackup's in-plane conductance and the faces' heat transfer coefficients: a variant
+    that changes those may need a different mesh than the base.
+    """
     h = hashlib.sha256()
     arrays = [board.outline, *board.holes]
     arrays += [np.concatenate([p.footprint_polygon().ravel(), p.footprint]) for p in board.parts]
@@ -33,9 +40,11 @@ def geometry_key(board: Board) -> str:
     for a in arrays:
         h.update(np.ascontiguousarray(a, dtype=np.float64).tobytes())
         h.update(b"|")
-    names = [p.refdes for p in board.parts] + [p.name for p in board.pours]
-    names += [v.name for v in board.via_fields] + [m.name for m in board.mounts]
-    h.update(repr((names, board.run.mesh_refinement, board.thickness)).encode())
+    # region names as the mesh carries them: a pour and a via field may not swap a name
+    names = [f"part:{p.refdes}" for p in board.parts] + [f"pour:{p.name}" for p in board.pours]
+    names += [f"via:{v.name}" for v in board.via_fields] + [f"mount:{m.name}" for m in board.mounts]
+    # the board thickness and run.mesh_refinement act on the mesh only through the sizes
+    h.update(repr((names, sorted(element_sizes(board).items()))).encode())
     return h.hexdigest()
 
 

@@ -201,8 +201,12 @@ def _set_path(root: dict[str, Any], dotted: str, value: Any, where: str) -> None
             node = node[names.index(key)]
         elif isinstance(node, dict):
             if key not in node:
-                if depth == 0 or key not in NAMED_LISTS:
-                    node[key] = {}
+                if key in NAMED_LISTS:
+                    raise BoardFileError(
+                        f"{where}: the board has no [[{key}]] entries; expected a path to an "
+                        f"existing one, '{key}.<name>.<key>'"
+                    )
+                node[key] = {}
             node = node[key]
         else:
             raise BoardFileError(f"{where}: {key!r} does not name a table or list")
@@ -529,6 +533,12 @@ def _features(
         region = _region(m)
         if not points_in_polygon(region.polygon, outline).all():
             raise BoardFileError(f"{where}: the contact reaches outside the board outline")
+        for i, hole in enumerate(holes):
+            if points_in_polygon(region.polygon, hole).all():
+                raise BoardFileError(
+                    f"{where}: the contact lies inside outline hole {i}; expected it to cover "
+                    "board material (e.g. a ring around the hole)"
+                )
         contact_area = region.area - sum(
             Region(h).area for h in holes if points_in_polygon(h, region.polygon).all()
         )
@@ -536,7 +546,8 @@ def _features(
             conductance = m.conductance_w_per_k
         else:
             assert m.h_contact_w_per_m2k is not None
-            conductance = m.h_contact_w_per_m2k * contact_area
+            # h_contact acts on each contacting face: both faces clamp twice the area
+            conductance = m.h_contact_w_per_m2k * contact_area * (2 if m.side == "both" else 1)
         mounts.append(
             Mount(
                 name=m.name,
@@ -620,6 +631,7 @@ def load_board(path: str | Path, variant: str | None = None) -> Board:
     """
     path = Path(path)
     raw = read_raw(path)
+    _check_variant_names(raw, path)
     if variant is None or variant == "base":
         base = dict(raw)
         variants = base.pop("variant", [])
@@ -633,7 +645,30 @@ def load_board(path: str | Path, variant: str | None = None) -> Board:
                 loc = ("variant", i, *first["loc"])
                 raise BoardFileError(f"{path}: {_path_text(loc, raw)}: {_explain(first)}") from err
         return board
-    return board_from_raw(apply_variant(raw, variant, path), path, variant=variant)
+    return _variant_board(raw, variant, path)
+
+
+def _check_variant_names(raw: Mapping[str, Any], path: Path) -> None:
+    """Reject duplicate variant names and a variant called 'base' (the unmodified board)."""
+    seen: set[str] = set()
+    for name in variant_names(raw):
+        if name == "base":
+            raise BoardFileError(
+                f"{path}: variant[base].name: 'base' names the unmodified board; expected "
+                "another name"
+            )
+        if name in seen:
+            raise BoardFileError(f"{path}: variant[{name}].name: duplicate variant name")
+        seen.add(name)
+
+
+def _variant_board(raw: Mapping[str, Any], name: str, path: Path) -> Board:
+    """Return the board a variant makes; its errors say which variant made it."""
+    changed = apply_variant(raw, name, path)
+    try:
+        return board_from_raw(changed, path, variant=name)
+    except BoardFileError as err:
+        raise BoardFileError(f"{err} (in the board made by variant[{name}])") from err
 
 
 def load_variants(path: str | Path) -> list[Board]:
@@ -642,5 +677,5 @@ def load_variants(path: str | Path) -> list[Board]:
     raw = read_raw(path)
     boards = [load_board(path)]
     for name in variant_names(raw):
-        boards.append(board_from_raw(apply_variant(raw, name, path), path, variant=name))
+        boards.append(_variant_board(raw, name, path))
     return boards

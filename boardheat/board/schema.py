@@ -214,8 +214,12 @@ class MountSpec(_Strict):
     rect: RectSpec | None = None
     side: Literal["top", "bottom", "both"] = "bottom"
     temperature_c: float
-    conductance_w_per_k: Positive | None = None
-    h_contact_w_per_m2k: Positive | None = None
+    conductance_w_per_k: Positive | None = Field(
+        None, description="total contact conductance to the fixed temperature, W/K"
+    )
+    h_contact_w_per_m2k: Positive | None = Field(
+        None, description="contact conductance per area of each contacting face (side)"
+    )
 
     @model_validator(mode="after")
     def _rules(self) -> MountSpec:
