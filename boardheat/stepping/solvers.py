@@ -85,9 +85,15 @@ class _PardisoFactorization:
         )
         # a new solver object searches the file system for MKL (~0.3 s) unless told where it
         # is: remember the library the first one found
-        name = getattr(getattr(self._solver, "libmkl", None), "_name", None)
+        library = getattr(self._solver, "libmkl", None)
+        name = getattr(library, "_name", None)
         if isinstance(name, str) and name:
             os.environ.setdefault("PYPARDISO_MKL_RT", name)
+        # one MKL thread: on 2 cores the second thread bought nothing on the demo board
+        # (9.4 s vs 16 s with two threads while another job ran), and variants already run
+        # in parallel processes
+        with contextlib.suppress(AttributeError):
+            library.MKL_Set_Num_Threads(1)  # type: ignore[union-attr]
         self._solver.factorize(self._matrix)
 
     def solve(self, rhs: FloatArray) -> FloatArray:
