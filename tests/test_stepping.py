@@ -625,3 +625,23 @@ def test_stepping_overhead_on_a_50k_dof_board():
     sol = integrate(ode, np.full(n, T_AMB), 10.0, P, StepperOptions(cache_size=32))
     stats = sol.stats
     assert stats.seconds_total <= 1.3 * (stats.seconds_factor + stats.seconds_solve), stats
+
+
+def test_factorization_cache_respects_its_memory_budget():
+    # a budget smaller than two factorizations keeps exactly two (the newest), never fewer
+    from boardheat.stepping.solvers import _FactorCache
+
+    n = 2000
+    K = sp.diags_array(
+        [np.full(n - 1, -1.0), np.full(n, 2.5), np.full(n - 1, -1.0)], offsets=[-1, 0, 1]
+    ).tocsr()
+    M = sp.eye_array(n, format="csr")
+    cache = _FactorCache(M, K, 0.5, "splu", size=40, budget=1)
+    for dt in (0.1, 0.2, 0.4, 0.8):
+        cache.get(dt)
+    assert cache.counters.factorizations == 4
+    assert cache.evictions_for_memory == 2
+    cache.get(0.8)  # still cached
+    assert cache.counters.factorizations == 4
+    cache.get(0.1)  # evicted: factored again
+    assert cache.counters.factorizations == 5
