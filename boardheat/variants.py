@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import hashlib
 import multiprocessing
+import os
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
@@ -66,8 +67,17 @@ def run_variants(
     work = [(b, meshes[geometry_key(b)]) for b in boards]
     if jobs <= 1 or len(work) <= 1:
         return [_solve(b, m, options) for b, m in work], boards
-    context = multiprocessing.get_context("spawn")
-    with ProcessPoolExecutor(max_workers=min(jobs, len(work)), mp_context=context) as pool:
-        futures = [pool.submit(_solve, b, m, options) for b, m in work]
-        results = [f.result() for f in futures]
+    # the workers share the cores: one solver thread each (spawned workers inherit this)
+    previous = os.environ.get("BOARDHEAT_THREADS")
+    os.environ["BOARDHEAT_THREADS"] = "1"
+    try:
+        context = multiprocessing.get_context("spawn")
+        with ProcessPoolExecutor(max_workers=min(jobs, len(work)), mp_context=context) as pool:
+            futures = [pool.submit(_solve, b, m, options) for b, m in work]
+            results = [f.result() for f in futures]
+    finally:
+        if previous is None:
+            os.environ.pop("BOARDHEAT_THREADS", None)
+        else:
+            os.environ["BOARDHEAT_THREADS"] = previous
     return results, boards
