@@ -164,6 +164,14 @@ class _Controller:
                 f"integrate: step {step:.3e} s at t={t!r} s is below the time resolution; "
                 "expected dt_min well above the spacing of floats at t"
             )
+        if self._unit is not None:
+            multiple = step / self._unit
+            k = round(multiple)
+            if k >= 1 and abs(multiple - k) <= 1e-6 * multiple:
+                # a gap taken as a difference of large times carries rounding (300.03 -
+                # 300.025 = 0.0049999999999954525 s): key the matrix by the step on the unit
+                # grid, so the same step never gets a second factorization
+                step = k * self._unit
         return _quantize(step), t_new, landing
 
     def _on_ladder(self, gap: float) -> bool:
