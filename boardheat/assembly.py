@@ -31,7 +31,7 @@ import numpy as np
 import numpy.typing as npt
 import scipy.sparse as sp
 
-from boardheat.board import Board, Part
+from boardheat.board import Board
 from boardheat.junction import ladder_matrices
 from boardheat.meshing import Mesh
 from boardheat.stackup import Stackup, layer_properties, via_enhanced
@@ -335,8 +335,3 @@ def assemble(mesh: Mesh, stack: Stackup, board: Board, consistent: bool = False)
         surface_area=surface_area,
         seconds=time.perf_counter() - start,
     )
-
-
-def part_power_matrix(parts: tuple[Part, ...], t: FloatArray, side: str = "right") -> FloatArray:
-    """Return every part's power at times ``t``, (len(t), n_parts) W."""
-    return np.column_stack([p.schedule.value(t, side=side) for p in parts])  # type: ignore[arg-type]

@@ -25,7 +25,8 @@ from typing import Literal
 import numpy as np
 import numpy.typing as npt
 
-from boardheat.board import Board, Part
+from boardheat.board import Board, Layer, Part
+from boardheat.stackup import layer_properties
 
 FloatArray = npt.NDArray[np.float64]
 Status = Literal["PASS", "NEAR", "FAIL"]
@@ -208,6 +209,11 @@ def part_results(
 
 
 # ----------------------------------------------------------------------------- sanity checks
+def _rho_c(layer: Layer) -> float:
+    """Return a layer's homogenised volumetric heat capacity at its own fill, J/(m^3 K)."""
+    return float(layer_properties(layer, layer.fill)[2])
+
+
 def board_capacity(board: Board) -> float:
     """Return the board's heat capacity from the file alone, J/K (laminate + parts + ladders).
 
@@ -217,12 +223,7 @@ def board_capacity(board: Board) -> float:
     area = board.area
     total = 0.0
     for layer in board.layers:
-        mat, resin = layer.material, layer.resin
-        if layer.kind == "copper":
-            rc = layer.fill * mat.rho_c + (1 - layer.fill) * resin.rho_c
-        else:
-            rc = mat.rho_c
-        total += rc * layer.thickness * area
+        total += _rho_c(layer) * layer.thickness * area
     for pour in board.pours:
         layer = board.layers[board.layer_index(pour.layer)]
         d_rc = (pour.fill - layer.fill) * (layer.material.rho_c - layer.resin.rho_c)
@@ -232,11 +233,7 @@ def board_capacity(board: Board) -> float:
     for via in board.via_fields:
         via_area = _clipped_area(via.region.polygon, board)
         for layer in board.layers[via.first_layer : via.last_layer + 1]:
-            rc = (
-                layer.fill * layer.material.rho_c + (1 - layer.fill) * layer.resin.rho_c
-                if layer.kind == "copper"
-                else layer.material.rho_c
-            )
+            rc = _rho_c(layer)
             total += via.copper_fraction * (cu_rho_c - rc) * layer.thickness * via_area
     total += sum(p.body_capacity for p in board.parts)
     total += sum(float(np.sum(p.junction.C)) for p in board.parts if p.junction is not None)
@@ -277,13 +274,7 @@ def biot_number(board: Board) -> float:
     """Return the through-thickness Biot number h_max (d/2) / k_z,eff of the bare board."""
     env = board.environment
     r = sum(
-        layer.thickness
-        / (
-            1.0 / (layer.fill / layer.material.k_through + (1 - layer.fill) / layer.resin.k_through)
-            if layer.kind == "copper"
-            else layer.material.k_through
-        )
-        for layer in board.layers
+        layer.thickness / float(layer_properties(layer, layer.fill)[1]) for layer in board.layers
     )
     k_eff = board.thickness / r
     return max(env.h_top, env.h_bottom) * board.thickness / 2.0 / k_eff
@@ -449,12 +440,8 @@ def sanity_checks(
 def local_capacity(board: Board, part: Part) -> float:
     """Return body + outer-copper capacity under the footprint, J/K (adiabatic-bound region)."""
     layer = board.layers[0] if part.side == "top" else board.layers[-1]
-    fill = layer.fill if layer.kind == "copper" else 0.0
-    rc = fill * layer.material.rho_c + (1 - fill) * layer.resin.rho_c
-    if layer.kind == "dielectric":
-        rc = layer.material.rho_c
     area = float(np.prod(part.footprint))
-    return part.body_capacity + rc * layer.thickness * area
+    return part.body_capacity + _rho_c(layer) * layer.thickness * area
 
 
 def local_diffusion_time(board: Board, part: Part) -> float:

@@ -26,6 +26,7 @@ import numpy.typing as npt
 
 from boardheat.board import Board
 from boardheat.errors import MeshingError
+from boardheat.stackup import layer_properties
 
 FloatArray = npt.NDArray[np.float64]
 IntArray = npt.NDArray[np.int64]
@@ -101,11 +102,7 @@ def element_sizes(board: Board) -> dict[str, float]:
     ext = board.outline.max(axis=0) - board.outline.min(axis=0)
     scale = board.run.mesh_refinement
     sheet = sum(
-        (layer.fill * layer.material.k_inplane + (1 - layer.fill) * layer.resin.k_inplane)
-        * layer.thickness
-        if layer.kind == "copper"
-        else layer.material.k_inplane * layer.thickness
-        for layer in board.layers
+        float(layer_properties(layer, layer.fill)[0]) * layer.thickness for layer in board.layers
     )
     h_sum = board.environment.h_top + board.environment.h_bottom
     spread = math.sqrt(sheet / h_sum) if h_sum > 0 else math.inf
