@@ -555,7 +555,7 @@ def test_backends_agree(backend, module):
     rhs = rng.normal(size=300)
     x = make_factorization(K, backend).solve(rhs)
     np.testing.assert_allclose(x, spsolve(K.tocsc(), rhs), rtol=1e-9, atol=1e-12)
-    # a factorization dropped above may hand its solver object on (pardiso pools them)
+    # a factorization dropped above frees its memory; a new one must not be disturbed by that
     K2 = K + sp.diags_array(rng.uniform(0.5, 1.0, 300))
     factor = make_factorization(K2, backend)
     np.testing.assert_allclose(factor.solve(rhs), spsolve(K2.tocsc(), rhs), rtol=1e-9)
@@ -596,6 +596,53 @@ def test_auto_backend_prefers_cholmod_then_pardiso_then_splu():
     assert small == ("splu" if names[0] == "pardiso" else names[0])
     big = make_factorization(sp.eye_array(PARDISO_MIN_DOFS, format="csr"), "auto").backend
     assert big == names[0]
+
+
+@pytest.mark.parametrize("backend", ["splu", "pardiso"])
+def test_cached_factorizations_of_m_plus_dt_a_solve_exactly(backend):
+    # Every cached factorization solves (M + c dt A) x = b as scipy's spsolve does, also when
+    # a cache of two evicts and re-factors (with PARDISO: released slots are reused and the
+    # sparsity pattern is analysed once for every dt). Reference: scipy.sparse.linalg.spsolve.
+    from boardheat.stepping.solvers import _FactorCache
+
+    if backend == "pardiso" and backend not in available_backends():
+        pytest.skip("the MKL runtime is not installed")
+    rng = np.random.default_rng(SEED + 7)
+    n = 400
+    A = _random_spd_m_matrix(n, rng)
+    M = sp.diags_array(rng.uniform(0.5, 2.0, n)).tocsr()
+    rhs = rng.normal(size=n)
+    cache = _FactorCache(M, A, 0.3, backend, size=2)
+    for dt in (0.1, 0.2, 0.4, 0.1, 0.8, 1.6, 0.2, 0.2):
+        x = cache.get(dt).solve(rhs)
+        K = (M + (0.3 * dt) * A).tocsc()
+        np.testing.assert_allclose(K @ x, rhs, rtol=0, atol=1e-12 * np.abs(rhs).max())
+        np.testing.assert_allclose(x, spsolve(K, rhs), rtol=1e-10, atol=1e-14)
+    assert cache.counters.factorizations == 7  # only the last 0.2 was still cached
+    if backend == "pardiso":
+        assert cache._family is not None
+        assert cache._family.analyses == 1
+
+
+def test_pardiso_reports_a_matrix_that_is_not_positive_definite():
+    from boardheat.stepping.pardiso import PardisoPattern, factor_once
+
+    if "pardiso" not in available_backends():
+        pytest.skip("the MKL runtime is not installed")
+    indefinite = sp.csr_array(np.array([[1.0, 2.0], [2.0, 1.0]]))  # eigenvalues 3 and -1
+    with pytest.raises(SolverError, match="PARDISO phase 22: error -4"):
+        factor_once(indefinite)
+    factor = factor_once(sp.eye_array(3, format="csr") * 2.0)
+    np.testing.assert_allclose(factor.solve(np.ones(3)), 0.5)
+    factor.release()
+    with pytest.raises(SolverError, match="after release"):
+        factor.solve(np.ones(3))
+    pattern = PardisoPattern(sp.eye_array(3, format="csr"), maxfct=1)
+    kept = pattern.factor(np.ones(3))
+    with pytest.raises(SolverError, match="slots are in use"):
+        pattern.factor(np.ones(3))
+    kept.release()
+    np.testing.assert_allclose(pattern.factor(np.full(3, 4.0)).solve(np.ones(3)), 0.25)
 
 
 def test_singular_matrix_raises_solver_error():

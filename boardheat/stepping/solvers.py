@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import contextlib
 import importlib
 import logging
 import os
@@ -87,56 +86,21 @@ def solver_threads() -> int:
     return max(1, min(cores, int(cores - busy + 0.5)))
 
 
-_PARDISO_SOLVERS: list[Any] = []
-"""Released PyPardisoSolver objects kept for reuse (creating one searches the file system for
-the MKL library, about 0.3 s here)."""
-
-
 class _PardisoFactorization:
     backend = "pardiso"
 
     def __init__(self, matrix: Any) -> None:
-        import pypardiso  # optional dependency (MKL PARDISO)
+        from boardheat.stepping.pardiso import factor_once, set_threads
 
         # Board matrices are symmetric positive definite: PARDISO's matrix type 2 (real SPD,
         # Cholesky) reads the upper triangle only and factors ~1.5x faster than the general
-        # type 11. One solver object holds one factorization; solve() reuses it when handed
-        # the same CSR matrix again.
-        self._matrix = sp.triu(sp.csr_matrix(matrix, dtype=np.float64), format="csr")
-        self._matrix.sort_indices()
-        self._solver: Any = (
-            _PARDISO_SOLVERS.pop() if _PARDISO_SOLVERS else pypardiso.PyPardisoSolver(mtype=2)
-        )
-        # a new solver object searches the file system for MKL (~0.3 s) unless told where it
-        # is: remember the library the first one found
-        library = getattr(self._solver, "libmkl", None)
-        name = getattr(library, "_name", None)
-        if isinstance(name, str) and name:
-            os.environ.setdefault("PYPARDISO_MKL_RT", name)
-        with contextlib.suppress(AttributeError):
-            library.MKL_Set_Num_Threads(solver_threads())  # type: ignore[union-attr]
-        self._solver.factorize(self._matrix)
+        # type 11.
+        set_threads(solver_threads())
+        self._factor = factor_once(matrix)
+        self.nbytes = self._factor.nbytes
 
     def solve(self, rhs: FloatArray) -> FloatArray:
-        x = self._solver.solve(self._matrix, np.ascontiguousarray(rhs, dtype=np.float64))
-        return np.asarray(x, dtype=np.float64).reshape(-1)
-
-    @property
-    def nbytes(self) -> int:
-        """Memory PARDISO reports for the factorization (iparm 16 + 17, kB), plus the matrix."""
-        iparm = np.asarray(getattr(self._solver, "iparm", np.zeros(64)))
-        kilobytes = int(iparm[15]) + int(iparm[16])
-        return 1024 * kilobytes + 12 * int(self._matrix.nnz)
-
-    def __del__(self) -> None:
-        # MKL keeps a factorization's memory until it is freed explicitly (phase -1); the
-        # solver object then goes back to the pool. Suppressed: at interpreter shutdown the
-        # library may already be unloaded.
-        solver = getattr(self, "_solver", None)
-        if solver is not None and hasattr(solver, "free_memory"):
-            with contextlib.suppress(Exception):
-                solver.free_memory(everything=True)
-                _PARDISO_SOLVERS.append(solver)
+        return self._factor.solve(rhs)
 
 
 _FACTORIZERS: dict[str, Callable[[Any], Factorization]] = {
@@ -161,11 +125,11 @@ def available_backends() -> list[str]:
     >>> available_backends()[-1]
     'splu'
     """
-    names = [
-        name
-        for name, module in (("cholmod", "sksparse.cholmod"), ("pardiso", "pypardiso"))
-        if _importable(module)
-    ]
+    from boardheat.stepping import pardiso
+
+    names = ["cholmod"] if _importable("sksparse.cholmod") else []
+    if pardiso.available():
+        names.append("pardiso")
     return [*names, "splu"]
 
 
@@ -194,12 +158,10 @@ def make_factorization(matrix: Any, backend: str = "auto") -> Factorization:
     matrix : (n, n) sparse, any unit
         The matrix K to factor.
     backend : {"auto", "splu", "cholmod", "pardiso"}
-        ``"auto"`` picks CHOLMOD if scikit-sparse imports, else PARDISO if pypardiso imports
+        ``"auto"`` picks CHOLMOD if scikit-sparse imports, else PARDISO if the MKL runtime loads
         and the matrix has at least ``PARDISO_MIN_DOFS`` rows, else scipy's SuperLU with a
         symmetric minimum-degree ordering. A dropped PARDISO
-        factorization frees MKL's memory and hands its solver object on for reuse: creating
-        one makes pypardiso search for the MKL library (0.3-0.4 s measured here; its
-        environment variable PYPARDISO_MKL_RT, the library path, skips the search).
+        factorization frees MKL's memory at once.
 
     Returns
     -------
@@ -255,6 +217,12 @@ class _Timed:
         self._counters.solves += 1
         return x
 
+    def release(self) -> None:
+        """Free the factorization's memory now where the back end allows it."""
+        release = getattr(self._factor, "release", None)
+        if release is not None:
+            release()
+
 
 @dataclass
 class _Counters:
@@ -273,11 +241,50 @@ def memory_budget() -> int:
     return int(total // 4)
 
 
+class _PardisoFamily:
+    """Factorizations of K = M + s·A for many s, sharing one PARDISO analysis.
+
+    The upper triangles of M and A are laid on their union pattern (diagonal always present)
+    once; the values of K for a given s are then one vectorized ``m + s·a``, with no sparse
+    addition, and PARDISO's ordering and symbolic factorization (about half to two thirds of a
+    factorization's time) run once for all s.
+    """
+
+    def __init__(self, M: Any, A: Any, maxfct: int) -> None:
+        from boardheat.stepping.pardiso import PardisoPattern
+
+        n = int(M.shape[0])
+        upper_m = sp.triu(sp.coo_array(M, dtype=np.float64)).tocoo()
+        upper_a = sp.triu(sp.coo_array(A, dtype=np.float64)).tocoo()
+        diagonal = np.arange(n, dtype=np.int64)
+        rows = np.concatenate([upper_m.row, upper_a.row, diagonal]).astype(np.int64)
+        cols = np.concatenate([upper_m.col, upper_a.col, diagonal]).astype(np.int64)
+        keys, where = np.unique(rows * n + cols, return_inverse=True)  # CSR order: row, col
+        pattern_rows = keys // n
+        indptr = np.searchsorted(pattern_rows, np.arange(n + 1))
+        pattern = sp.csr_array((np.ones(keys.size), keys % n, indptr), shape=(n, n))
+        n_m, n_a = upper_m.nnz, upper_a.nnz
+        self._m = np.bincount(where[:n_m], weights=upper_m.data, minlength=keys.size)
+        self._a = np.bincount(where[n_m : n_m + n_a], weights=upper_a.data, minlength=keys.size)
+        self._pattern = PardisoPattern(pattern, maxfct)
+
+    def factor(self, s: float) -> Factorization:
+        from boardheat.stepping.pardiso import set_threads
+
+        set_threads(solver_threads())
+        return self._pattern.factor(self._m + s * self._a)
+
+    @property
+    def analyses(self) -> int:
+        return self._pattern.analyses
+
+
 class _FactorCache:
     """LRU cache of factorizations of M + c*dt*A keyed by the (quantized) step dt.
 
     Holds at most ``size`` factorizations and at most ``budget`` bytes of them (at least two
     are always kept): on a 230k-DOF board forty cached PARDISO factorizations took 16 GB.
+    With PARDISO every factorization shares one analysis of the common sparsity pattern.
     """
 
     def __init__(
@@ -294,6 +301,8 @@ class _FactorCache:
         self.counters = _Counters()
         self.keys_factored: set[float] = set()
         self.evictions_for_memory = 0
+        # one slot more than the cache holds: a new factorization exists before the eviction
+        self._family = _PardisoFamily(M, A, size + 1) if backend == "pardiso" else None
 
     def get(self, dt: float) -> _Timed:
         hit = self._store.get(dt)
@@ -301,7 +310,18 @@ class _FactorCache:
             self._store.move_to_end(dt)
             return hit
         start = time.perf_counter()
-        factor = make_factorization(self._M + (self._c * dt) * self._A, self._backend)
+        try:
+            if self._family is not None:
+                factor = self._family.factor(self._c * dt)
+            else:
+                factor = make_factorization(self._M + (self._c * dt) * self._A, self._backend)
+        except SolverError:
+            raise
+        except Exception as err:  # each back end has its own exception types
+            raise SolverError(
+                f"factoring M + {self._c:.3g}·{dt:.3e}·A failed ({err}); expected symmetric "
+                "positive definite M and A"
+            ) from err
         self.counters.seconds_factor += time.perf_counter() - start
         self.counters.factorizations += 1
         self.keys_factored.add(dt)
@@ -310,10 +330,13 @@ class _FactorCache:
         n = int(self._M.shape[0])
         self._bytes[dt] = int(getattr(factor, "nbytes", 1000 * n))
         while len(self._store) > self._size:
-            old, _ = self._store.popitem(last=False)
-            self._bytes.pop(old, None)
+            self._evict()
         while len(self._store) > 2 and sum(self._bytes.values()) > self._budget:
-            old, _ = self._store.popitem(last=False)
-            self._bytes.pop(old, None)
+            self._evict()
             self.evictions_for_memory += 1
         return timed
+
+    def _evict(self) -> None:
+        old, factor = self._store.popitem(last=False)
+        self._bytes.pop(old, None)
+        factor.release()
