@@ -33,7 +33,7 @@ def test_every_case_prints_its_row_and_the_ratios(tmp_path: Path) -> None:
     text = run_script(
         "--in-process",
         "--cases",
-        "trbdf2,reference,be,ivp",
+        "trbdf2,reference,loose,be,ivp",
         "--be-dt0",
         "0.005",
         "--be-budget",
@@ -47,7 +47,8 @@ def test_every_case_prints_its_row_and_the_ratios(tmp_path: Path) -> None:
         assert key in text, f"column {key!r} missing from:\n{text}"
     for row in ("reference rtol 1e-06", "TR-BDF2 rtol", "backward Euler dt 0.005", "solve_ivp"):
         assert row in text, f"row {row!r} missing from:\n{text}"
-    assert "steps BE / TR-BDF2, BE within 0.1 K" in text
+    assert "steps BE / TR-BDF2, both within 0.1 K" in text
+    assert "TR-BDF2 rtol 0.03" in text  # the loosest of the "loose" runs (board rtol 1e-3 x 30)
     assert "time solve_ivp / TR-BDF2" in text
 
     figures = json.loads(out.read_text())
@@ -60,6 +61,12 @@ def test_every_case_prints_its_row_and_the_ratios(tmp_path: Path) -> None:
     be = figures["be_equal"][0]
     assert be["target"] == pytest.approx(0.1)
     assert be["steps"] >= figures["be_sweep"][0]["steps"]
+    # TR-BDF2 at equal accuracy: the loosest run within 0.1 K, never a run outside it
+    loose = figures["tr_sweep"]
+    assert [r["rtol"] for r in loose] == pytest.approx([3e-3, 1e-2, 3e-2])
+    errors = [(r["rtol"], r["error_vs_reference"]) for r in [tr, *loose]]
+    meeting = [rtol for rtol, error in errors if error is not None and error <= 0.1]
+    assert f"loosest run that meets it is TR-BDF2 rtol {max(meeting):g}" in text
 
     # a saved run prints the same table again
     cmd = [sys.executable, str(SCRIPT), "--show", str(out)]
