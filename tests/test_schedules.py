@@ -317,6 +317,12 @@ def test_random_superposition_matches_naive_reference():
     assert np.all(np.isin(edges, b))
     assert np.all(np.diff(b) > 0)
 
+    # one time at a time (the stepper's use) takes a plain-float path: bitwise the same values
+    probe = np.concatenate([s.knots, t[:500], [0.0, -1.0, 1e300, np.inf, -np.inf]])
+    for side in ("left", "right"):
+        one_by_one = np.array([float(s.value(float(x), side)) for x in probe])
+        assert np.array_equal(one_by_one, s.value(probe, side)), side
+
 
 # --- events ----------------------------------------------------------------------------------
 
