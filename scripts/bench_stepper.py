@@ -176,7 +176,17 @@ def case_stepper(spec: Figures, model: Any) -> Figures:
         cache_size=spec["cache_size"],
         ladder_ratio=spec.get("ladder_ratio", 2.0),
     )
-    sol = integrate(ode, T0, board.run.duration, s.P, opts)
+    last = [time.perf_counter()]
+
+    def progress(t: float, steps: int) -> None:
+        # long cases (1 M DOFs run for tens of minutes) say where they are every 30 s
+        now = time.perf_counter()
+        if now - last[0] >= 30.0:
+            last[0] = now
+            where = f"    [{spec['label']}] t = {t:.6g} s, {steps} steps"
+            print(where, file=sys.stderr, flush=True)
+
+    sol = integrate(ode, T0, board.run.duration, s.P, opts, progress=progress)
     st = sol.stats
     stops = np.unique(np.append(ode.breakpoints, board.run.duration))
     return {

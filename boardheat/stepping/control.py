@@ -126,20 +126,17 @@ class _Controller:
         self._unit = unit
         self._seen_gaps: set[float] = set()
         self._ladder = _Ladder(unit if unit is not None else start, opts.ladder_ratio)
-        self._ratio = opts.ladder_ratio
         self.h = self._ladder.floor(start) if unit is not None else self._ladder.base
         self._h_floor = self._ladder.ceil(opts.dt_min)
         self._h_cap = self._ladder.floor(opts.dt_max) if math.isfinite(opts.dt_max) else math.inf
         self._fixed_dt = opts.fixed_dt if opts.fixed_dt is not None else math.inf
         self._segment = (0.0, 0, 0.0)  # fixed steps: start, number of steps, step
         self._segment_done = 0
-        self.last_is_rung = False  # whether propose() returned a free ladder step
 
     def propose(self, t: float, t_stop: float) -> tuple[float, float, bool]:
         """Return (dt used in the formulas, time reached, whether the step lands on t_stop)."""
         gap = t_stop - t
         recurring = False
-        self.last_is_rung = False
         if self.adaptive and self.h >= gap * (1.0 - 1e-7):
             # a landing gap met before (periodic schedules repeat them) gets its own matrix,
             # factored once; a new one is decomposed into rungs so it needs no new matrix
@@ -151,12 +148,10 @@ class _Controller:
             step = self._ladder.floor(min(self.h, gap) * (1.0 + 1e-7))
             landing = step >= gap * (1.0 - 1e-7)
             t_new = t_stop if landing else t + step
-            self.last_is_rung = True
         elif self.adaptive:
             landing = self.h >= gap * (1.0 - 1e-6)
             step = gap if landing else (0.5 * gap if 2.0 * self.h > gap else self.h)
             t_new = t_stop if landing else t + _quantize(step)
-            self.last_is_rung = not landing and step == self.h
         else:
             if self._segment_done == self._segment[1]:
                 count = max(1, math.ceil(gap / self._fixed_dt * (1.0 - 1e-12)))
@@ -178,26 +173,6 @@ class _Controller:
                 # grid, so the same step never gets a second factorization
                 step = k * self._unit
         return _quantize(step), t_new, landing
-
-    def substitute(self, dt: float, cached: Callable[[float], bool]) -> float | None:
-        """Return the longest cached rung in [dt/8, dt) that may replace step dt, or None.
-
-        Only a free ladder step (not a landing gap of its own) is replaced. With a ladder
-        unit the rung must be a whole number of units, so that landing by rungs still works
-        from the shorter step's end.
-        """
-        if not (self.adaptive and self.last_is_rung):
-            return None
-        rung = dt
-        for _ in range(3):
-            rung = self._ladder.floor(rung / self._ratio * (1.0 + 1e-7))
-            if rung < self._h_floor or rung < dt / 8.0 * (1.0 - 1e-9):
-                return None
-            if self._unit is not None and rung < self._unit * (1.0 - 1e-7):
-                return None
-            if cached(rung):
-                return rung
-        return None
 
     def _on_ladder(self, gap: float) -> bool:
         """Return whether ``gap`` is a whole number of ladder units (exact landing by rungs)."""
@@ -247,29 +222,3 @@ class _Controller:
         restart = max(min(restart, self.h), self._opts.dt_min)
         self.h = max(self._h_floor, self._ladder.floor(restart))
         self._after_jump = True
-
-
-class _RentOrBuy:
-    """Whether to factor a new step size now or keep taking a cached shorter rung.
-
-    The rent-or-buy rule (Karlin, Manasse, Rudolph & Sleator, Algorithmica 3 (1988) 79-119):
-    a step of dt' < dt instead of dt wastes (1 - dt'/dt) of a step's work. That waste is
-    summed per wanted dt, and the step is factored once the sum would reach the cost of one
-    factorization; in hindsight this never costs more than twice the better choice.
-
-    >>> rule = _RentOrBuy()
-    >>> [rule.rent(4.0, 2.0, step_seconds=1.0, factor_seconds=1.6) for _ in range(5)]
-    [True, True, True, False, True]
-    """
-
-    def __init__(self) -> None:
-        self._waste: dict[float, float] = {}
-
-    def rent(self, dt: float, rung: float, step_seconds: float, factor_seconds: float) -> bool:
-        """Return True to take ``rung`` instead of factoring for ``dt`` (booking its waste)."""
-        waste = self._waste.get(dt, 0.0) + (1.0 - rung / dt) * step_seconds
-        if waste >= factor_seconds:
-            self._waste.pop(dt, None)
-            return False
-        self._waste[dt] = waste
-        return True

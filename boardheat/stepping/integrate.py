@@ -33,7 +33,6 @@ from boardheat.stepping.control import (
     _W,
     GAMMA,
     _Controller,
-    _RentOrBuy,
     _starting_step,
     ladder_unit,
 )
@@ -355,20 +354,10 @@ def integrate(
 
     unit = ladder_unit(stops, opts.ladder_ratio)
     control = _Controller(opts, opts.dt_initial or guess(), t_end, unit)
-    rent = _RentOrBuy()  # with a full cache: factor a new step size, or take a cached shorter one
-    solves_per_step = 3 if trbdf2 else 1
-    substitutes = 0
     attempts = 0
     i_stop = 0
     while i_stop < stops.size:
         dt, t_new, landing = control.propose(t, float(stops[i_stop]))
-        if opts.cost_aware and dt not in factors and factors.full():
-            rung = control.substitute(dt, factors.__contains__)
-            counts = factors.counters
-            step_seconds = solves_per_step * counts.seconds_solve / max(1, counts.solves)
-            if rung is not None and rent.rent(dt, rung, step_seconds, counts.last_factor_seconds):
-                dt, t_new, landing = rung, t + rung, False
-                substitutes += 1
         attempts += 1
         if attempts > opts.max_steps:
             raise SolverError(
@@ -435,7 +424,6 @@ def integrate(
         backend=backend,
         distinct_dt=len(factors.keys_factored),
         dt_floor_hits=control.floor_hits,
-        cached_substitutes=substitutes,
     )
     logger.debug("integrate finished: %s", stats)
     if stats.factorizations > stats.distinct_dt:

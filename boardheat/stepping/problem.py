@@ -115,15 +115,6 @@ class StepperOptions:
         Limit on attempted steps (accepted + rejected).
     cache_size : int
         Number of factorizations kept (least recently used one evicted first).
-    cost_aware : bool
-        When the cache is full (by count or by memory) and the controller asks for a step
-        size that is not factored, take a cached ladder step up to eight times shorter
-        instead, for as long as the work those shorter steps waste stays below the measured
-        cost of one factorization; then factor (the rent-or-buy rule of Karlin, Manasse,
-        Rudolph & Sleator, Algorithmica 3 (1988) 79-119: at most twice the cost of the better
-        choice in hindsight). This stops a small cache from evicting and re-factoring the
-        same step sizes over and over (1 M DOF boards, where a few factorizations fill the
-        memory). A shorter step only lowers the local error; the estimate still decides.
     """
 
     method: Literal["trbdf2", "backward_euler"] = "trbdf2"
@@ -139,7 +130,6 @@ class StepperOptions:
     backend: BackendName = "auto"
     max_steps: int = 2_000_000
     cache_size: int = 40
-    cost_aware: bool = True
 
     def __post_init__(self) -> None:
         def bad(name: str, expected: str) -> SolverError:
@@ -184,7 +174,6 @@ class SolverStats:
     backend: str
     distinct_dt: int
     dt_floor_hits: int = 0
-    cached_substitutes: int = 0
 
 
 @dataclass(frozen=True)

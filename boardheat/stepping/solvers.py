@@ -230,7 +230,6 @@ class _Counters:
     solves: int = 0
     seconds_factor: float = 0.0
     seconds_solve: float = 0.0
-    last_factor_seconds: float = 0.0
 
 
 def memory_budget() -> int:
@@ -305,18 +304,6 @@ class _FactorCache:
         # one slot more than the cache holds: a new factorization exists before the eviction
         self._family = _PardisoFamily(M, A, size + 1) if backend == "pardiso" else None
 
-    def __contains__(self, dt: float) -> bool:
-        return dt in self._store
-
-    def full(self) -> bool:
-        """Return whether one more factorization would evict one (by count or by memory)."""
-        if len(self._store) >= self._size:
-            return True
-        if len(self._store) < 2:
-            return False
-        held = sum(self._bytes.values())
-        return held + held / len(self._store) > self._budget
-
     def get(self, dt: float) -> _Timed:
         hit = self._store.get(dt)
         if hit is not None:
@@ -335,9 +322,7 @@ class _FactorCache:
                 f"factoring M + {self._c:.3g}·{dt:.3e}·A failed ({err}); expected symmetric "
                 "positive definite M and A"
             ) from err
-        elapsed = time.perf_counter() - start
-        self.counters.seconds_factor += elapsed
-        self.counters.last_factor_seconds = elapsed
+        self.counters.seconds_factor += time.perf_counter() - start
         self.counters.factorizations += 1
         self.keys_factored.add(dt)
         timed = _Timed(factor, self.counters)
