@@ -417,13 +417,13 @@ def test_factorizations_are_reused_across_a_200_pulse_train():
 
 def test_adaptive_steps_come_from_the_ladder_except_landings():
     # Steps not shortened to land on a stop are base * ratio**k (rounded to 40 mantissa bits):
-    # with ratio 2 the base is the stops' common unit (0.1 s here: stops 0.3, 1.3, 4, 6.5, 30),
-    # otherwise the first step dt_0.
+    # with a whole ratio the base is the stops' common unit (0.1 s here: stops 0.3, 1.3, 4,
+    # 6.5, 30), otherwise the first step dt_0.
     n = 20
     M, A, g, B = chain(n=n, c_source=0.05)
     p, bps = pulse_train(5.0, [0.3, 4.0], [1.0, 2.5])
     ode = LinearOde(M, A, g, B, p, bps)
-    for ratio in (2.0, 3.0):
+    for ratio in (2.0, 3.0, 2.5):
         opts = options(ladder_ratio=ratio, dt_initial=1e-3)
         sol = integrate(ode, np.full(n, T_AMB), 30.0, identity_probes(n), opts)
         ends_at_stop = np.isin(sol.t, np.append(bps, 30.0))
@@ -432,7 +432,7 @@ def test_adaptive_steps_come_from_the_ladder_except_landings():
         first_half[:-1] = ends_at_stop[1:] & np.isclose(sol.dt[:-1], sol.dt[1:], rtol=1e-9)
         free = sol.dt[1:][~(ends_at_stop | first_half)[1:]]
         assert free.size > 20
-        base = 0.1 if ratio == 2.0 else 1e-3
+        base = 0.1 if ratio in (2.0, 3.0) else 1e-3
         k = np.log(free / base) / np.log(ratio)
         np.testing.assert_allclose(k, np.round(k), atol=1e-9)
         assert sol.stats.distinct_dt <= 40
@@ -494,6 +494,8 @@ def test_invalid_input_raises_solver_error_naming_the_field():
     P = identity_probes(4)
     with pytest.raises(SolverError, match="ladder_ratio"):
         StepperOptions(ladder_ratio=1.0)
+    with pytest.raises(SolverError, match="ladder_ratio"):
+        StepperOptions(ladder_ratio=8.0)  # could never grow a rung: it stalled at 112 k steps
     with pytest.raises(SolverError, match="fixed_dt"):
         StepperOptions(method="backward_euler")
     with pytest.raises(SolverError, match="atol"):

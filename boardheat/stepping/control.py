@@ -65,15 +65,18 @@ def ladder_unit(stops: FloatArray, ratio: float) -> float | None:
     """Return the largest time unit 10^-j s (j = 0..9) of which every stop is a multiple.
 
     Board schedules are written in round times (5 ms, 100 ms, 60 s), so their breakpoints
-    share such a unit. A step ladder anchored at it, ``unit * 2**k``, reaches every stop by a
-    sum of ladder steps (binary decomposition of the gap), so landing on a breakpoint needs no
-    matrix off the ladder. Only a ratio of 2 has that property; None otherwise, or when no
+    share such a unit. A step ladder anchored at it, ``unit * ratio**k`` with a whole ratio,
+    reaches every stop by a sum of ladder steps (greedy: the largest rung that fits, until
+    it lands; with ratio 2 the binary decomposition of the gap), so landing on a breakpoint
+    needs no matrix off the ladder. None for a ratio that is not a whole number, or when no
     unit fits (then landing steps are taken off the ladder).
 
     >>> ladder_unit(np.array([0.005, 0.025, 60.05, 120.0]), 2.0)
     0.001
+    >>> ladder_unit(np.array([0.005, 0.025]), 2.5) is None
+    True
     """
-    if ratio != 2.0 or stops.size == 0:
+    if ratio != round(ratio) or ratio < 2.0 or stops.size == 0:
         return None
     for j in range(10):
         unit = 10.0**-j

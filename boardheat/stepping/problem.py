@@ -105,8 +105,10 @@ class StepperOptions:
         First step (None: starting-step heuristic) and bounds of the adaptive step.
     fixed_dt : float or None, s
         Fixed-step mode: each interval between stops is cut into equal steps <= fixed_dt.
-    ladder_ratio : float
-        Adaptive steps are dt_0 * ladder_ratio**k (k integer), dt_0 the first step.
+    ladder_ratio : float, in (1, 4]
+        Adaptive steps are dt_0 * ladder_ratio**k (k integer): dt_0 is the stops' common
+        decimal unit for a whole ratio (2, 3, 4), else the first step. At most 4: a step grows
+        by at most 5x, so with a larger ratio it could never reach the next rung.
     restart_dt : float or None, s
         First step after a jump in power; None learns it from the previous jump.
     backend : {"auto", "splu", "cholmod", "pardiso"}
@@ -152,8 +154,8 @@ class StepperOptions:
                 raise bad(name, "None or a finite step > 0 s")
         if self.method == "backward_euler" and self.fixed_dt is None:
             raise bad("fixed_dt", "a step size: method='backward_euler' runs with fixed steps")
-        if not self.ladder_ratio > 1.0:
-            raise bad("ladder_ratio", "> 1")
+        if not 1.0 < self.ladder_ratio <= 4.0:
+            raise bad("ladder_ratio", "in (1, 4]: steps grow by at most 5x, so up to one rung")
         if self.max_steps < 1:
             raise bad("max_steps", ">= 1")
         if self.cache_size < 1:
