@@ -14,6 +14,19 @@ from boardheat.board.model import Board
 ROOT = Path(__file__).resolve().parents[1]
 
 
+def stackup_toml(core_mm: float, fill: float) -> str:
+    """Return the ``[[stackup]]`` tables of a 1 oz / core / 1 oz board as board-file text.
+
+    The text has no braces, so it can be joined into a ``str.format`` template.
+    """
+    copper = f'kind = "copper"\nweight_oz = 1\nfill = {fill!r}\n'
+    return (
+        f'[[stackup]]\nname = "top"\n{copper}\n'
+        f'[[stackup]]\nname = "core"\nkind = "dielectric"\nthickness_mm = {core_mm!r}\n\n'
+        f'[[stackup]]\nname = "bottom"\n{copper}'
+    )
+
+
 def raw_board(**overrides: Any) -> dict[str, Any]:
     """Return a valid raw 2-layer 40 x 30 mm board with one part; keys can be overridden."""
     raw: dict[str, Any] = {

@@ -10,10 +10,12 @@ from typer.testing import CliRunner
 
 from boardheat.cli import app
 from boardheat.errors import SolverError
+from tests.conftest import stackup_toml
 
 pytestmark = pytest.mark.gmsh
 
-BOARD = """\
+BOARD = (
+    """\
 # test board of our own invention
 format_version = 1
 name = "cli_test"
@@ -21,23 +23,9 @@ name = "cli_test"
 [outline]
 polygon_mm = [[0, 0], [30, 0], [30, 20], [0, 20]]
 
-[[stackup]]
-name = "top"
-kind = "copper"
-weight_oz = 1
-fill = 0.6
-
-[[stackup]]
-name = "core"
-kind = "dielectric"
-thickness_mm = 1.0
-
-[[stackup]]
-name = "bottom"
-kind = "copper"
-weight_oz = 1
-fill = 0.6
-
+"""
+    + stackup_toml(core_mm=1.0, fill=0.6)
+    + """
 [environment]
 ambient_c = 25
 
@@ -54,6 +42,7 @@ theta_jb_k_per_w = 10
 tj_max_c = {limit}
 power = {{ pulses = [{{ start_s = 1.0, width_s = 0.5, power_w = 2.0 }}], steps = [[0, 0.3]] }}
 """
+)
 
 
 @pytest.fixture

@@ -24,7 +24,7 @@ from boardheat.meshing import element_sizes
 from boardheat.report.compare import critical_refdes
 from boardheat.run import RunOptions, run_check
 from boardheat.variants import geometry_key, run_variants
-from tests.conftest import ROOT, make_board, raw_board
+from tests.conftest import ROOT, make_board, raw_board, stackup_toml
 
 pytestmark = pytest.mark.gmsh
 
@@ -33,7 +33,8 @@ DEMO_VARIANTS = ["base", "inner_2oz", "big_pour", "via_field", "all_copper"]
 COPPER_OPTIONS = ["inner_2oz", "big_pour", "via_field"]
 
 #: a small two-part board with two copper options (our own invention): U1 fails in the base
-SMALL = """\
+SMALL = (
+    """\
 # test board of our own invention
 format_version = 1
 name = "variant_test"
@@ -41,23 +42,9 @@ name = "variant_test"
 [outline]
 polygon_mm = [[0, 0], [30, 0], [30, 20], [0, 20]]
 
-[[stackup]]
-name = "top"
-kind = "copper"
-weight_oz = 1
-fill = 0.3
-
-[[stackup]]
-name = "core"
-kind = "dielectric"
-thickness_mm = 1.0
-
-[[stackup]]
-name = "bottom"
-kind = "copper"
-weight_oz = 1
-fill = 0.3
-
+"""
+    + stackup_toml(core_mm=1.0, fill=0.3)
+    + """
 [environment]
 ambient_c = 25
 
@@ -102,10 +89,12 @@ name = "PU1"
 layer = "bottom"
 rect = {{ center_mm = [10, 10], size_mm = [12, 12] }}
 {extra}"""
+)
 
 #: a 120 x 80 mm board with sparse copper whose far-field element size is set by the in-plane
 #: spreading length sqrt(sum(k t)/(h_top + h_bottom)) (our own invention)
-WIDE = """\
+WIDE = (
+    """\
 # test board of our own invention
 format_version = 1
 name = "wide"
@@ -113,23 +102,9 @@ name = "wide"
 [outline]
 polygon_mm = [[0, 0], [120, 0], [120, 80], [0, 80]]
 
-[[stackup]]
-name = "top"
-kind = "copper"
-weight_oz = 1
-fill = 0.3
-
-[[stackup]]
-name = "core"
-kind = "dielectric"
-thickness_mm = 1.5
-
-[[stackup]]
-name = "bottom"
-kind = "copper"
-weight_oz = 1
-fill = 0.3
-
+"""
+    + stackup_toml(core_mm=1.5, fill=0.3)
+    + """
 [environment]
 ambient_c = 25
 h_top_w_per_m2k = 10
@@ -156,6 +131,7 @@ set = { "environment.h_top_w_per_m2k" = 30 }
 name = "hotter"
 set = { "part.U1.power" = 2.0 }
 """
+)
 
 
 def _small(tmp_path: Path, extra: str = "") -> Path:
