@@ -626,6 +626,26 @@ def test_cached_factorizations_of_m_plus_dt_a_solve_exactly(backend):
         assert cache._family.analyses == 1
 
 
+def test_pardiso_counts_the_bytes_of_each_factorization_once():
+    # Every factorization of one analysed pattern holds the same memory, 8 bytes per stored
+    # entry of L. For a dense n x n SPD matrix L has n(n+1)/2 entries (Golub & Van Loan,
+    # Matrix Computations, 4th ed., Sec. 4.2), and a supernodal code stores at most the
+    # n x n block: the count lies between the two (n = 60: 14 640 and 28 800 bytes, plus the
+    # values). Summing PARDISO's iparm[16] instead would report twice that for the second.
+    from boardheat.stepping.pardiso import PardisoPattern
+
+    if "pardiso" not in available_backends():
+        pytest.skip("the MKL runtime is not installed")
+    n = 60
+    X = np.random.default_rng(SEED + 11).normal(size=(n, n))
+    upper = sp.triu(sp.csr_array(X @ X.T + n * np.eye(n)), format="csr")
+    pattern = PardisoPattern(upper, maxfct=3)
+    first, second = pattern.factor(upper.data), pattern.factor(2.0 * upper.data)
+    values = 8 * upper.nnz
+    assert first.nbytes == second.nbytes
+    assert 8 * n * (n + 1) // 2 <= first.nbytes - values <= 8 * (n * n + n)
+
+
 def test_pardiso_reports_a_matrix_that_is_not_positive_definite():
     from boardheat.stepping.pardiso import PardisoPattern, factor_once
 
@@ -677,7 +697,7 @@ def test_stepping_overhead_on_a_50k_dof_board():
 
 
 def test_factorization_cache_respects_its_memory_budget():
-    # a budget smaller than two factorizations keeps exactly two (the newest), never fewer
+    # a budget smaller than one factorization keeps exactly the newest one, never fewer
     from boardheat.stepping.solvers import _FactorCache
 
     n = 2000
@@ -689,8 +709,19 @@ def test_factorization_cache_respects_its_memory_budget():
     for dt in (0.1, 0.2, 0.4, 0.8):
         cache.get(dt)
     assert cache.counters.factorizations == 4
-    assert cache.evictions_for_memory == 2
+    assert cache.evictions_for_memory == 3
     cache.get(0.8)  # still cached
     assert cache.counters.factorizations == 4
     cache.get(0.1)  # evicted: factored again
     assert cache.counters.factorizations == 5
+    # a budget of two and a half factorizations holds two, counting the one being made
+    cache = _FactorCache(M, K, 0.5, "splu", size=40, budget=1)
+    cache.get(0.1)
+    one = cache._bytes[0.1]
+    cache = _FactorCache(M, K, 0.5, "splu", size=40, budget=int(2.5 * one))
+    for dt in (0.1, 0.2, 0.4, 0.8):
+        cache.get(dt)
+        assert len(cache._store) <= 2
+    assert cache.evictions_for_memory == 2
+    cache.get(0.4)
+    assert cache.counters.factorizations == 4
