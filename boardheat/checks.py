@@ -19,6 +19,7 @@ lumped-capacitance sanity checks, each with its numbers:
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass, field
 from typing import Literal
 
@@ -26,6 +27,7 @@ import numpy as np
 import numpy.typing as npt
 
 from boardheat.board import Board, Layer, Part
+from boardheat.schedules import Schedule
 from boardheat.stackup import layer_properties
 
 FloatArray = npt.NDArray[np.float64]
@@ -309,6 +311,47 @@ def lumped_mean_rise(
     return theta
 
 
+def lumped_rise_of_schedules(
+    schedules: Sequence[Schedule],
+    t: FloatArray,
+    capacity: float,
+    conductance: float,
+    extra_power: float = 0.0,
+) -> FloatArray:
+    """Return the lumped mean rise at the times t for the exact power sum of ``schedules``, K.
+
+    The samples are t together with every breakpoint of every schedule, each breakpoint on
+    both sides of its jump (two samples at one time), so the total power is linear between
+    consecutive samples and :func:`lumped_mean_rise` integrates it exactly. Sampling the power
+    at t alone would spread a jump at the end of a long step over the whole step.
+
+    Parameters
+    ----------
+    schedules : sequence of Schedule
+    t : (n,) float ndarray, s
+        Increasing times, t[0] = 0.
+    capacity : float, J/K
+    conductance : float, W/K
+    extra_power : float, W
+        A constant source added to the schedules (fixed-temperature contacts).
+
+    Returns
+    -------
+    (n,) float ndarray, K
+    """
+    t_end = float(t[-1])
+    grid = np.unique(np.concatenate([t, *(s.breakpoints(t_end) for s in schedules)]))
+    left = np.full(grid.size, float(extra_power))
+    right = np.full(grid.size, float(extra_power))
+    for schedule in schedules:
+        left += schedule.value(grid, "left")
+        right += schedule.value(grid, "right")
+    times = np.repeat(grid, 2)
+    power = np.column_stack([left, right]).reshape(-1)
+    theta = lumped_mean_rise(times, power, capacity, conductance)
+    return np.asarray(theta[2 * np.searchsorted(grid, t) + 1], dtype=np.float64)
+
+
 def sanity_checks(
     board: Board,
     traces: Traces,
@@ -393,7 +436,8 @@ def sanity_checks(
     tau = capacity / conductance if conductance > 0 else math.inf
     # contacts to a fixed temperature act as a conductance plus a source G_c (T_fix - T_amb)
     contact_source = sum(m.conductance * (m.temperature - ambient) for m in board.mounts)
-    lumped = lumped_mean_rise(t, p_total + contact_source, capacity, conductance)
+    schedules = [p.schedule for p in board.parts]
+    lumped = lumped_rise_of_schedules(schedules, t, capacity, conductance, contact_source)
     field_rise = traces.mean - ambient
     scale = max(float(np.max(np.abs(lumped))), 1e-9)
     dev = float(np.max(np.abs(field_rise - lumped))) / scale

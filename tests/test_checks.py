@@ -13,6 +13,7 @@ from boardheat.assembly import assemble
 from boardheat.checks import (
     board_capacity,
     lumped_mean_rise,
+    lumped_rise_of_schedules,
     status_of,
     time_above,
 )
@@ -49,6 +50,35 @@ def test_lumped_rise_matches_exponential_and_ode():
     sol = solve_ivp(lambda s, y: (0.1 * s - g * y) / c, (0, 50), [0.0], t_eval=t,
                     method="Radau", rtol=1e-10, atol=1e-12)  # fmt: skip
     assert lumped_mean_rise(t, ramp, c, g) == pytest.approx(sol.y[0], abs=1e-8)
+
+
+def test_lumped_rise_sees_a_pulse_and_a_ramp_inside_one_recorded_step():
+    """The lumped model integrates the schedules, not the power sampled at recorded times.
+
+    A 3 W pulse on [10, 20] s and a ramp 0 -> 2 W on [30, 50] s (held after), recorded only at
+    0, 25 and 100 s. Pulse: superposition of two step responses (Incropera & DeWitt
+    sec. 5.3), theta = P/G (1 - e^(-10/tau)) e^(-(t - 20)/tau); the ramp is checked against
+    scipy's Radau at rtol 1e-10 on the exact schedule (tolerance 1e-7 K). Sampling the power
+    at the three recorded times alone sees 0 W everywhere but at 100 s.
+    """
+    from boardheat.schedules import Schedule
+
+    c, g, tau = 10.0, 0.5, 20.0
+    pulse = Schedule(np.array([10.0, 20.0]), np.array([0.0, 3.0]), np.array([3.0, 0.0]))
+    ramp = Schedule(np.array([30.0, 50.0]), np.array([0.0, 2.0]), np.array([0.0, 2.0]))
+    t = np.array([0.0, 25.0, 100.0])
+    theta = lumped_rise_of_schedules([pulse, ramp], t, c, g)
+    assert theta[1] == pytest.approx(3.0 / g * (1 - np.exp(-10 / tau)) * np.exp(-5 / tau))
+
+    def rate(s, y):
+        return [(float(pulse.value(s)) + float(ramp.value(s)) - g * y[0]) / c]
+
+    pieces = [0.0, 10.0, 20.0, 30.0, 50.0, 100.0]  # integrated piece by piece (kinks, jumps)
+    y = [0.0]
+    for a, b in zip(pieces[:-1], pieces[1:], strict=True):
+        y = solve_ivp(rate, (a, b), y, method="Radau", rtol=1e-10, atol=1e-12).y[:, -1]
+    assert theta[2] == pytest.approx(y[0], abs=1e-7)
+    assert theta[0] == 0.0
 
 
 @pytest.mark.gmsh
