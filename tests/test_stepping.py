@@ -438,6 +438,34 @@ def test_adaptive_steps_come_from_the_ladder_except_landings():
         assert sol.stats.distinct_dt <= 40
 
 
+def test_landing_weighs_one_step_of_the_gap_against_a_sum_of_rungs():
+    # Cost model of the controller (a step: 3 solves, a factorization: 20 solves). The gap
+    # 0.127 s on a 1 ms unit is 64 + 32 + 16 + 8 + 4 + 2 + 1 ms (its binary digits).
+    # Nothing factored: one step of the gap (3 + 20) beats seven new rungs (7 x 23).
+    # Every rung factored, the gap not: seven cached steps (21) beat one new matrix (23).
+    # 3 ms = 2 + 1 ms cached (6) beats one new matrix. A gap met before always gets its own.
+    from boardheat.stepping.control import _Controller, _Ladder
+
+    ladder = _Ladder(1e-3, 2.0)
+    rungs = {ladder.rung(k) for k in range(12)}
+
+    def controller():
+        c = _Controller(StepperOptions(), first=0.128, t_end=10.0, unit=1e-3)
+        assert c.h == pytest.approx(0.128)
+        return c
+
+    dt, t_new, landing = controller().propose(1.0, 1.127, cached=lambda dt: False)
+    assert (dt, t_new, landing) == (pytest.approx(0.127, rel=1e-12), 1.127, True)
+    dt, t_new, landing = controller().propose(1.0, 1.127, cached=rungs.__contains__)
+    assert (dt, landing) == (ladder.rung(6), False)  # 64 ms, as the cache knows it
+    dt, t_new, landing = controller().propose(1.0, 1.003, cached=rungs.__contains__)
+    assert (dt, landing) == (ladder.rung(1), False)  # 2 ms
+    c = controller()
+    c.propose(1.0, 1.127, cached=rungs.__contains__)
+    dt, t_new, landing = c.propose(2.0, 2.127, cached=rungs.__contains__)  # recurring gap
+    assert (dt, t_new, landing) == (pytest.approx(0.127, rel=1e-12), 2.127, True)
+
+
 # --- outputs -----------------------------------------------------------------------------------
 
 

@@ -224,6 +224,15 @@ class _Timed:
             release()
 
 
+#: What one factorization costs, in solves with it (the step-size controller weighs landing
+#: plans with it). A fixed figure per back end, not a timing of this run, so that the steps
+#: taken do not depend on the machine's load. Measured here (factorization / solve seconds):
+#: PARDISO 16 (13 k DOF), 20 (230 k), 33 (1 M); on the layered test matrices of
+#: scripts/bench_solvers.py CHOLMOD takes about 50 (52 k, 205 k) and splu with
+#: MMD_AT_PLUS_A 90 (52 k) to 170 (205 k).
+FACTOR_COST_IN_SOLVES = {"pardiso": 20.0, "cholmod": 50.0, "splu": 90.0}
+
+
 @dataclass
 class _Counters:
     factorizations: int = 0
@@ -307,6 +316,10 @@ class _FactorCache:
         self._expected_bytes = 0  # size of the next factorization: that of the last one
         # evictions come before each new factorization, so ``size`` slots are enough
         self._family = _PardisoFamily(M, A, size) if backend == "pardiso" else None
+
+    def cached(self, dt: float) -> bool:
+        """Return whether the factorization of step dt is held (without touching its age)."""
+        return dt in self._store
 
     def get(self, dt: float) -> _Timed:
         hit = self._store.get(dt)
