@@ -38,7 +38,7 @@ the figure is ``ru_maxrss`` of the whole child (marked with ``*``).
 dominates the mesh; measured on the demo board: 13 k at S = 1, 52 k at 3, 230 k at 8, 1.0 M at
 22. Above ``--full-max-dofs`` only ``trbdf2`` runs unless ``--cases`` asks for more;
 ``--duration`` shortens the sequence and ``--cache-size`` bounds the factorizations held (each
-one holds about 3 GiB at 1 M DOFs with PARDISO).
+one holds 2.6 GiB at 1 M DOFs with PARDISO: 350 M stored entries of L).
 
 Usage::
 
