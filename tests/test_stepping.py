@@ -724,6 +724,19 @@ def test_stepping_overhead_on_a_50k_dof_board():
     assert stats.seconds_total <= 1.3 * (stats.seconds_factor + stats.seconds_solve), stats
 
 
+def test_memory_budget_follows_the_environment(monkeypatch):
+    from boardheat.stepping.solvers import memory_budget
+
+    monkeypatch.setenv("BOARDHEAT_CACHE_GIB", "1.5")
+    assert memory_budget() == 3 * 1024**3 // 2
+    for bad in ("8GB", "0", "-1", "nan", "inf"):
+        monkeypatch.setenv("BOARDHEAT_CACHE_GIB", bad)
+        with pytest.raises(SolverError, match="BOARDHEAT_CACHE_GIB=.*expected a number of GiB"):
+            memory_budget()
+    monkeypatch.delenv("BOARDHEAT_CACHE_GIB")
+    assert 0 < memory_budget()
+
+
 def test_factorization_cache_respects_its_memory_budget():
     # a budget smaller than one factorization keeps exactly the newest one, never fewer
     from boardheat.stepping.solvers import _FactorCache
