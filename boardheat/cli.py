@@ -23,7 +23,7 @@ from rich.console import Console
 from rich.progress import Progress, SpinnerColumn, TextColumn, TimeElapsedColumn
 
 from boardheat import __version__
-from boardheat.errors import BoardFileError, BoardheatError, GeometryError
+from boardheat.errors import BoardFileError, BoardheatError, GeometryError, SettingError
 
 app = typer.Typer(
     name="boardheat",
@@ -80,7 +80,7 @@ def _guard(debug: bool, action: Callable[[], T]) -> T:
     """Run ``action``; turn our errors into one stderr line and the right exit code."""
     try:
         return action()
-    except (BoardFileError, GeometryError) as err:
+    except (BoardFileError, GeometryError, SettingError) as err:
         if debug:
             err_console.print_exception(show_locals=False)
         err_console.print(f"error: {err}", markup=False)

@@ -15,6 +15,10 @@ class BoardFileError(BoardheatError, ValueError):
     """The board file (or a file it refers to) is invalid; the message names file and field."""
 
 
+class SettingError(BoardheatError, ValueError):
+    """A setting outside the board file is invalid (an environment variable); names it."""
+
+
 class GeometryError(BoardheatError):
     """The board geometry is invalid (self-crossing outline, part off the board, ...)."""
 

@@ -104,6 +104,15 @@ def test_exit_2_on_bad_input_with_one_clear_line(runner, tmp_path):
     assert "Traceback" not in res.output
 
 
+def test_exit_2_on_a_bad_cache_setting_with_one_clear_line(runner, tmp_path, monkeypatch):
+    monkeypatch.setenv("BOARDHEAT_CACHE_GIB", "8GB")
+    res = runner.invoke(app, ["check", str(_write(tmp_path)), "--quiet"])
+    assert res.exit_code == 2
+    message = " ".join(res.output.split())  # the console wraps at its width
+    assert "BOARDHEAT_CACHE_GIB='8GB'; expected a number of GiB > 0" in message
+    assert "Traceback" not in res.output
+
+
 def test_exit_2_on_missing_file(runner, tmp_path):
     res = runner.invoke(app, ["check", str(tmp_path / "nope.toml")])
     assert res.exit_code == 2

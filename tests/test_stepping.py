@@ -20,7 +20,7 @@ import scipy.sparse as sp
 from scipy.integrate import solve_ivp
 from scipy.sparse.linalg import spsolve
 
-from boardheat.errors import SolverError, StepperWarning
+from boardheat.errors import SettingError, SolverError, StepperWarning
 from boardheat.stepping import (
     GAMMA,
     LinearOde,
@@ -731,7 +731,7 @@ def test_memory_budget_follows_the_environment(monkeypatch):
     assert memory_budget() == 3 * 1024**3 // 2
     for bad in ("8GB", "0", "-1", "nan", "inf"):
         monkeypatch.setenv("BOARDHEAT_CACHE_GIB", bad)
-        with pytest.raises(SolverError, match="BOARDHEAT_CACHE_GIB=.*expected a number of GiB"):
+        with pytest.raises(SettingError, match="BOARDHEAT_CACHE_GIB=.*expected a number of GiB"):
             memory_budget()
     monkeypatch.delenv("BOARDHEAT_CACHE_GIB")
     assert 0 < memory_budget()

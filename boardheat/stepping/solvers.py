@@ -17,7 +17,7 @@ import numpy as np
 import scipy.sparse as sp
 from scipy.sparse.linalg import splu
 
-from boardheat.errors import SolverError
+from boardheat.errors import SettingError, SolverError
 from boardheat.stepping.problem import FloatArray, LinearOde
 
 logger = logging.getLogger(__name__)
@@ -256,7 +256,7 @@ def memory_budget() -> int:
         except ValueError:
             gib = math.nan
         if not (0.0 < gib < math.inf):
-            raise SolverError(
+            raise SettingError(
                 f"environment variable BOARDHEAT_CACHE_GIB={forced!r}; expected a number of "
                 "GiB > 0 (the memory the cached factorizations may hold)"
             )
