@@ -674,6 +674,40 @@ def test_pardiso_counts_the_bytes_of_each_factorization_once():
     assert 8 * n * (n + 1) // 2 <= first.nbytes - values <= 8 * (n * n + n)
 
 
+def test_pardiso_keeps_one_thread_count_per_handle():
+    # Measured here: a numerical factorization on fewer MKL threads than the analysis used
+    # kills the process with a segmentation fault. The handle therefore sets its own thread
+    # count before every call, whatever MKL was set to meanwhile. Run in a child process so
+    # that a regression fails this test instead of killing the test run.
+    import subprocess
+    import sys
+
+    if "pardiso" not in available_backends():
+        pytest.skip("the MKL runtime is not installed")
+    script = """
+import numpy as np, scipy.sparse as sp
+from boardheat.stepping.pardiso import PardisoPattern, set_threads
+n = 60  # 3 600 unknowns: at 900 the crash did not occur
+grid = sp.diags_array([-np.ones(n - 1), 4.0 * np.ones(n), -np.ones(n - 1)], offsets=[-1, 0, 1])
+K = sp.kronsum(grid, grid).tocsr()  # 2-D five-point Laplacian plus 2I, SPD
+upper = sp.triu(K, format="csr")
+upper.sort_indices()
+pattern = PardisoPattern(upper, maxfct=2, threads=2)
+first = pattern.factor(upper.data)
+set_threads(1)  # what another handle (or a busier machine) would leave behind
+second = pattern.factor(2.0 * upper.data)
+b = np.ones(K.shape[0])
+assert np.allclose(K @ first.solve(b), b)
+assert np.allclose(2.0 * (K @ second.solve(b)), b)
+print("ok")
+"""
+    done = subprocess.run(
+        [sys.executable, "-c", script], capture_output=True, text=True, timeout=120
+    )
+    assert done.returncode == 0, (done.returncode, done.stderr)  # -11: segmentation fault
+    assert done.stdout.strip() == "ok"
+
+
 def test_pardiso_reports_a_matrix_that_is_not_positive_definite():
     from boardheat.stepping.pardiso import PardisoPattern, factor_once
 

@@ -91,13 +91,12 @@ class _PardisoFactorization:
     backend = "pardiso"
 
     def __init__(self, matrix: Any) -> None:
-        from boardheat.stepping.pardiso import factor_once, set_threads
+        from boardheat.stepping.pardiso import factor_once
 
         # Board matrices are symmetric positive definite: PARDISO's matrix type 2 (real SPD,
         # Cholesky) reads the upper triangle only and factors ~1.5x faster than the general
         # type 11.
-        set_threads(solver_threads())
-        self._factor = factor_once(matrix)
+        self._factor = factor_once(matrix, solver_threads())
         self.nbytes = self._factor.nbytes
 
     def solve(self, rhs: FloatArray) -> FloatArray:
@@ -293,12 +292,10 @@ class _PardisoFamily:
         n_m, n_a = upper_m.nnz, upper_a.nnz
         self._m = np.bincount(where[:n_m], weights=upper_m.data, minlength=keys.size)
         self._a = np.bincount(where[n_m : n_m + n_a], weights=upper_a.data, minlength=keys.size)
-        self._pattern = PardisoPattern(pattern, maxfct)
+        # the thread count is chosen once: every phase of one handle must use the same
+        self._pattern = PardisoPattern(pattern, maxfct, threads=solver_threads())
 
     def factor(self, s: float) -> Factorization:
-        from boardheat.stepping.pardiso import set_threads
-
-        set_threads(solver_threads())
         return self._pattern.factor(self._m + s * self._a)
 
     @property
