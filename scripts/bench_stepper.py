@@ -45,6 +45,7 @@ Usage::
     python scripts/bench_stepper.py --threads 1 --json demo.json   # demo board, every case
     python scripts/bench_stepper.py --size 8                       # ~230 k DOFs, TR-BDF2 only
     python scripts/bench_stepper.py --size 22 --duration 0.1 --cache-size 3   # ~1 M DOFs
+    python scripts/bench_stepper.py --size 22 --cache-gib 8.5    # 1 M DOFs, three factorizations
     python scripts/bench_stepper.py --show demo.json               # print a saved run again
 """
 
@@ -672,6 +673,16 @@ def write_json(path: Path, fig: Figures) -> None:
     tmp.replace(path)
 
 
+def _positive_gib(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        value = math.nan
+    if not 0.0 < value < math.inf:
+        raise argparse.ArgumentTypeError(f"{text!r}: expected a number of GiB > 0")
+    return value
+
+
 def parse_args(argv: list[str] | None = None) -> argparse.Namespace:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--board", type=Path, default=DEMO_BOARD, help="board file (TOML)")
@@ -691,6 +702,12 @@ def parse_args(argv: list[str] | None = None) -> argparse.Namespace:
     )
     parser.add_argument("--backend", default="auto", choices=["auto", "splu", "cholmod", "pardiso"])
     parser.add_argument("--cache-size", type=int, default=40, help="factorizations kept")
+    parser.add_argument(
+        "--cache-gib",
+        type=_positive_gib,
+        default=None,
+        help="memory the cached factorizations may hold, GiB (sets BOARDHEAT_CACHE_GIB)",
+    )
     parser.add_argument(
         "--ladder-ratio", type=float, default=2.0, help="step ladder ratio of the trbdf2 case"
     )
@@ -725,6 +742,8 @@ def main(argv: list[str] | None = None) -> None:
     if args.show:
         report(json.loads(args.show.read_text()))
         return
+    if args.cache_gib is not None:
+        os.environ["BOARDHEAT_CACHE_GIB"] = repr(args.cache_gib)  # read by every case process
     if args.in_process and args.threads is not None:
         # read when MKL/OpenMP load, which happens with the first case's solver import
         for key in THREAD_VARIABLES:
