@@ -673,12 +673,11 @@ def write_json(path: Path, fig: Figures) -> None:
     tmp.replace(path)
 
 
-def _positive_gib(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        value = math.nan
-    if not 0.0 < value < math.inf:
+def _cache_gib(text: str) -> float:
+    from boardheat.stepping.solvers import positive_gib  # the rule BOARDHEAT_CACHE_GIB follows
+
+    value = positive_gib(text)
+    if value is None:
         raise argparse.ArgumentTypeError(f"{text!r}: expected a number of GiB > 0")
     return value
 
@@ -704,7 +703,7 @@ def parse_args(argv: list[str] | None = None) -> argparse.Namespace:
     parser.add_argument("--cache-size", type=int, default=40, help="factorizations kept")
     parser.add_argument(
         "--cache-gib",
-        type=_positive_gib,
+        type=_cache_gib,
         default=None,
         help="memory the cached factorizations may hold, GiB (sets BOARDHEAT_CACHE_GIB)",
     )

@@ -241,6 +241,15 @@ class _Counters:
     seconds_solve: float = 0.0
 
 
+def positive_gib(text: str) -> float | None:
+    """Return ``text`` as a finite number of GiB > 0, or None if it is not one."""
+    try:
+        gib = float(text)
+    except ValueError:
+        return None
+    return gib if 0.0 < gib < math.inf else None
+
+
 def memory_budget() -> int:
     """Return the bytes the factorization cache may hold: a quarter of physical memory.
 
@@ -250,11 +259,8 @@ def memory_budget() -> int:
     """
     forced = os.environ.get("BOARDHEAT_CACHE_GIB", "").strip()
     if forced:
-        try:
-            gib = float(forced)
-        except ValueError:
-            gib = math.nan
-        if not (0.0 < gib < math.inf):
+        gib = positive_gib(forced)
+        if gib is None:
             raise SettingError(
                 f"environment variable BOARDHEAT_CACHE_GIB={forced!r}; expected a number of "
                 "GiB > 0 (the memory the cached factorizations may hold)"
