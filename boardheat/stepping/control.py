@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -53,12 +54,38 @@ class _Ladder:
             k += 1
         return self.rung(k)
 
+    def even_floor(self, dt: float) -> float:
+        """Largest rung base * ratio**(2j) <= dt: the ladder of ratio squared, same base."""
+        k = round(math.log(self.floor(dt) / self.base) / self._log_ratio)
+        return self.rung(k - k % 2)
+
     def ceil(self, dt: float) -> float:
         """Smallest rung >= dt (within 1e-9 relative)."""
         below = self.floor(dt)
         if below >= dt * (1.0 - 1e-9):
             return below
         return self.floor(below * self._ratio * (1.0 + 1e-6))
+
+
+@dataclass
+class _GapRecord:
+    """What the controller learned about one length of interval between stops."""
+
+    count: int = 0  # steps of an equal-step plan (0: none yet)
+    adaptive_cost: float = math.inf  # solves of the last adaptive pass (steps + factorizations)
+
+
+@dataclass
+class _Interval:
+    """The interval between stops being stepped through."""
+
+    stop: float
+    key: float  # its length, quantized
+    attempts: int = 0  # steps tried, rejected ones included
+    accepted: int = 0
+    misses: int = 0  # steps whose matrix was not factored when proposed
+    planned: bool = False
+    step: float = 0.0  # the equal step of a plan in force (0: adaptive)
 
 
 def ladder_unit(stops: FloatArray, ratio: float) -> float | None:
@@ -144,17 +171,77 @@ class _Controller:
         self._segment_done = 0
         self._step_cost = float(solves_per_step)
         self._factor_cost = float(factor_cost)
+        self._crowded = False
+        self._gaps: dict[float, _GapRecord] = {}
+        self._interval = _Interval(stop=math.nan, key=math.nan)
 
     def propose(
-        self, t: float, t_stop: float, cached: Callable[[float], bool] | None = None
+        self,
+        t: float,
+        t_stop: float,
+        cached: Callable[[float], bool] | None = None,
+        crowded: bool = False,
     ) -> tuple[float, float, bool]:
         """Return (dt used in the formulas, time reached, whether the step lands on t_stop).
 
         ``cached(dt)`` tells whether the matrix of step dt is factored already; it lets a
         landing choose between one step of the whole gap and a sum of rungs (see
-        :meth:`_land_in_one`).
+        :meth:`_land_in_one`). ``crowded`` tells that the cache has had to free a
+        factorization to make room; the controller then covers recurring gaps with equal steps
+        where that costs fewer solves (:meth:`_plan_gap`) and grows the step two rungs at a
+        time (:meth:`accepted`).
         """
+        self._crowded = crowded
+        if self.adaptive and t_stop != self._interval.stop:
+            self._start_interval(t_stop - t, t_stop)
+        dt, t_new, landing = self._propose(t, t_stop, cached)
+        self._interval.attempts += 1
+        if cached is not None and not cached(dt):
+            self._interval.misses += 1
+        return dt, t_new, landing
+
+    def _start_interval(self, gap: float, t_stop: float) -> None:
+        """Close the record of the last interval between stops and plan the next one."""
+        done = self._interval
+        if not done.planned and done.key in self._gaps:
+            record = self._gaps[done.key]
+            record.adaptive_cost = self._step_cost * done.attempts
+            record.adaptive_cost += self._factor_cost * done.misses
+            if record.count == 0:
+                record.count = done.accepted
+        key = _quantize(gap)
+        self._interval = _Interval(stop=t_stop, key=key)
+        known = self._gaps.get(key)
+        if known is None:
+            self._gaps[key] = _GapRecord()
+        elif self._crowded and self.h < gap * (1.0 - 1e-7):
+            self._plan_gap(known, gap)
+
+    def _plan_gap(self, record: _GapRecord, gap: float) -> None:
+        """Cover a recurring gap with ``record.count`` equal steps if that costs fewer solves.
+
+        Periodic schedules (pulse trains) repeat the same gaps between stops, and left to
+        itself the controller covers each with the same ramp of three or four step sizes. When
+        the cache cannot hold them all (large boards: one factorization per 2.6 GiB at 1 M
+        DOFs), every ramp factors them again. Equal steps need one matrix per gap, held
+        from one period to the next. Their number is the step count of the gap's last pass
+        (raised after a rejection to what the estimate asked for), and the plan is taken only
+        while its steps cost fewer solves than the last adaptive pass over the same gap did,
+        steps and factorizations counted as in :meth:`_land_in_one`. A rejected step ends
+        the plan for the rest of the gap.
+        """
+        if record.count >= 1 and self._step_cost * record.count < record.adaptive_cost:
+            self._interval.planned = True
+            self._interval.step = _quantize(gap / record.count)
+
+    def _propose(
+        self, t: float, t_stop: float, cached: Callable[[float], bool] | None
+    ) -> tuple[float, float, bool]:
         gap = t_stop - t
+        if self._interval.step > 0.0:  # an equal-step plan of a recurring gap
+            step = self._interval.step
+            landing = step >= gap * (1.0 - 1e-6)
+            return step, (t_stop if landing else t + step), landing
         single = False
         if self.adaptive and self.h >= gap * (1.0 - 1e-7):
             single = self._land_in_one(gap, cached)
@@ -238,8 +325,13 @@ class _Controller:
         """Return True (and shrink the step) if a step with normalized error err is redone."""
         if not (self.adaptive and err > 1.0):
             return False
+        shrink = max(_FAC_MIN, _SAFETY * err ** (-1.0 / 3.0))
+        if self._interval.step > 0.0:  # the plan of equal steps fails: adaptive from here on
+            record = self._gaps[self._interval.key]
+            wanted = math.ceil((self._interval.stop - t) / (dt * shrink))
+            record.count = max(record.count + 1, wanted)
+            self._interval.step = 0.0
         if dt > self._h_floor * (1.0 + 1e-9):
-            shrink = max(_FAC_MIN, _SAFETY * err ** (-1.0 / 3.0))
             self.h = max(self._h_floor, self._ladder.floor(dt * shrink))
             return True
         self.floor_hits += 1  # at the floor: accept, and warn at the end
@@ -252,13 +344,17 @@ class _Controller:
         if not self.adaptive:
             self._segment_done += 1
             return
+        self._interval.accepted += 1
         clipped = dt < self.h * (1.0 - 1e-7)
         grow = _FAC_MAX if err <= 0.0 else _SAFETY * err ** (-1.0 / 3.0)
         grow = min(_FAC_MAX, max(_FAC_MIN, grow))
         proposal = dt * grow
         if clipped and grow >= 1.0:  # a step shortened to land does not shrink the next one
             proposal = max(proposal, self.h)
-        self.h = min(self._h_cap, max(self._h_floor, self._ladder.floor(proposal)))
+        h = self._ladder.floor(proposal)
+        if self._crowded and h > dt * (1.0 + 1e-9):
+            h = max(self._ladder.even_floor(h), self._ladder.floor(dt))
+        self.h = min(self._h_cap, max(self._h_floor, h))
         if self._after_jump and not clipped:
             self._learned_restart = self.h  # what the estimate asked for after the last jump
         self._after_jump = False

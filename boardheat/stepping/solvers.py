@@ -318,6 +318,8 @@ class _FactorCache:
     one analysis and so has exactly the same size). The newest is always kept, even alone
     over budget. With PARDISO one factorization holds 0.45 GiB at 230 k DOFs and 2.6 GiB at
     1 M DOFs (the board meshes of ``scripts/bench_stepper.py --size 8`` and ``--size 22``).
+    ``evictions`` counts the factorizations freed to make room; once it is positive, the step
+    controller plans for a crowded cache (see ``_Controller.propose``).
     """
 
     def __init__(
@@ -334,6 +336,7 @@ class _FactorCache:
         self.counters = _Counters()
         self.keys_factored: set[float] = set()
         self.evictions_for_memory = 0
+        self.evictions = 0
         self._expected_bytes = 0  # size of the next factorization: that of the last one
         # evictions come before each new factorization, so ``size`` slots are enough
         self._family = _PardisoFamily(M, A, size) if backend == "pardiso" else None
@@ -378,6 +381,7 @@ class _FactorCache:
         return timed
 
     def _evict(self) -> None:
+        self.evictions += 1
         old, factor = self._store.popitem(last=False)
         self._bytes.pop(old, None)
         factor.release()
