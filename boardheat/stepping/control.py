@@ -224,7 +224,7 @@ class _Controller:
         itself the controller covers each with the same ramp of three or four step sizes. When
         the cache cannot hold them all (large boards: one factorization per 2.6 GiB at 1 M
         DOFs), every ramp factors them again. Equal steps need one matrix per gap, held
-        from one period to the next. Their number is the step count of the gap's last pass
+        from one period to the next. Their number is the step count of the gap's first pass
         (raised after a rejection to what the estimate asked for), and the plan is taken only
         while its steps cost fewer solves than the last adaptive pass over the same gap did,
         steps and factorizations counted as in :meth:`_land_in_one`. A rejected step ends
@@ -328,7 +328,7 @@ class _Controller:
         shrink = max(_FAC_MIN, _SAFETY * err ** (-1.0 / 3.0))
         if self._interval.step > 0.0:  # the plan of equal steps fails: adaptive from here on
             record = self._gaps[self._interval.key]
-            wanted = math.ceil((self._interval.stop - t) / (dt * shrink))
+            wanted = math.ceil((self._interval.stop - t) / max(dt * shrink, self._h_floor))
             record.count = max(record.count + 1, wanted)
             self._interval.step = 0.0
         if dt > self._h_floor * (1.0 + 1e-9):
