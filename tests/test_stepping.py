@@ -890,6 +890,62 @@ def test_stepping_overhead_on_a_50k_dof_board():
     assert stats.seconds_total <= 1.3 * (stats.seconds_factor + stats.seconds_solve), stats
 
 
+@pytest.mark.parametrize(
+    ("load", "now", "forced", "expected"),
+    [
+        (0.1, 1.0, "", 2),  # a quiet load average is taken as it is (no sampling)
+        (1.8, 0.0, "", 2),  # a run just ended: the load average still reads busy, /proc idle
+        (1.8, 1.0, "", 1),  # another job holds a core now
+        (1.8, None, "", 1),  # no /proc/stat: the load average decides
+        (1.8, 0.0, "3", 3),  # BOARDHEAT_THREADS overrides
+    ],
+)
+def test_solver_threads_trust_the_present_over_the_load_average(
+    monkeypatch, load, now, forced, expected
+):
+    from boardheat.stepping import solvers
+
+    monkeypatch.setattr(solvers.os, "cpu_count", lambda: 2)
+    monkeypatch.setattr(solvers.os, "getloadavg", lambda: (load, load, load))
+    monkeypatch.setattr(solvers, "busy_cores_now", lambda: now)
+    monkeypatch.setenv("BOARDHEAT_THREADS", forced)
+    assert solvers.solver_threads() == expected
+
+
+@pytest.mark.skipif(not Path("/proc/stat").exists(), reason="needs Linux /proc/stat")
+def test_busy_cores_now_sees_another_process_but_not_this_one():
+    # A child process spinning on one core is counted (about 1.0); this process's own threads
+    # are not: a thread of ours spinning during the window must not add a core.
+    import subprocess
+    import sys
+    import threading
+
+    from boardheat.stepping.solvers import busy_cores_now
+
+    child = subprocess.Popen([sys.executable, "-c", "while True: pass"])
+    try:
+        readings = [busy_cores_now(0.2) for _ in range(3)]
+    finally:
+        child.kill()
+        child.wait()
+    assert max(readings) >= 0.6, readings  # stated: one busy core reads 0.6 or more
+
+    stop = threading.Event()
+
+    def spin():
+        while not stop.is_set():
+            pass
+
+    spinner = threading.Thread(target=spin)
+    spinner.start()
+    try:
+        own = [busy_cores_now(0.2) for _ in range(3)]
+    finally:
+        stop.set()
+        spinner.join()
+    assert min(own) < 0.5, own  # our own spinning thread is subtracted
+
+
 def test_memory_budget_follows_the_environment(monkeypatch):
     from boardheat.stepping.solvers import memory_budget
 
