@@ -402,8 +402,7 @@ class _FactorCache:
         while len(self._store) >= self._size:
             self._evict()
         while self._store and sum(self._bytes.values()) + self._expected_bytes > self._budget:
-            self._evict()
-            self.evictions_for_memory += 1
+            self._evict(for_memory=True)
         start = time.perf_counter()
         try:
             if self._family is not None:
@@ -425,12 +424,13 @@ class _FactorCache:
         n = int(self._M.shape[0])
         self._bytes[dt] = self._expected_bytes = int(getattr(factor, "nbytes", 1000 * n))
         while len(self._store) > 1 and sum(self._bytes.values()) > self._budget:
-            self._evict()  # the first one, or one larger than the last: over budget after all
-            self.evictions_for_memory += 1
+            # the first one, or one larger than the last: over budget after all
+            self._evict(for_memory=True)
         return timed
 
-    def _evict(self) -> None:
+    def _evict(self, for_memory: bool = False) -> None:
         self.evictions += 1
+        self.evictions_for_memory += int(for_memory)
         old, factor = self._store.popitem(last=False)
         self._bytes.pop(old, None)
         factor.release()
