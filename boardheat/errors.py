@@ -41,3 +41,7 @@ class SanityWarning(BoardheatWarning):
 
 class StepperWarning(BoardheatWarning):
     """The time stepper hit a limit (step-size floor, many rejections) but finished."""
+
+
+class MeshWarning(BoardheatWarning):
+    """The board mesh has elements whose shape lowers the accuracy locally."""

@@ -17,6 +17,7 @@ import contextlib
 import logging
 import math
 import time
+import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 
@@ -25,7 +26,7 @@ import numpy as np
 import numpy.typing as npt
 
 from boardheat.board import Board
-from boardheat.errors import MeshingError
+from boardheat.errors import MeshingError, MeshWarning
 from boardheat.stackup import layer_properties
 
 FloatArray = npt.NDArray[np.float64]
@@ -33,6 +34,13 @@ IntArray = npt.NDArray[np.int64]
 log = logging.getLogger(__name__)
 
 MM = 1e-3
+
+#: largest triangle angle accepted without a warning, degrees. The P1 interpolation error of
+#: gradients (and so of heat flux) is bounded only while the largest angle stays below some
+#: fixed bound under pi (the maximum angle condition: Babuska & Aziz, "On the angle condition
+#: in the finite element method", SIAM J. Numer. Anal. 13 (1976) 214-226); 170 degrees is
+#: our own choice of how near to flat counts as a sliver.
+MAX_ANGLE_DEG = 170.0
 
 
 @dataclass(frozen=True)
@@ -162,7 +170,48 @@ def build_mesh(board: Board, verbose: bool = False) -> Mesh:
         a.setflags(write=False)
     mesh = Mesh(points, triangles, edges, regions, time.perf_counter() - start, sizes)
     log.info("mesh: %d nodes, %d triangles in %.2f s", mesh.n_nodes, len(triangles), mesh.seconds)
+    sliver = sliver_report(mesh)
+    if sliver:
+        warnings.warn(f"{board.source}: {sliver}", MeshWarning, stacklevel=2)
     return mesh
+
+
+def largest_angles(points: FloatArray, triangles: IntArray) -> FloatArray:
+    """Return the largest interior angle of every triangle, degrees, (n_tri,)."""
+    p = points[triangles]
+    # the largest angle faces the longest side: law of cosines on the three side lengths
+    sides = np.stack(
+        [np.linalg.norm(p[:, (i + 1) % 3] - p[:, (i + 2) % 3], axis=1) for i in range(3)]
+    )
+    sides.sort(axis=0)
+    a, b, c = sides  # c the longest
+    cos = np.clip((a * a + b * b - c * c) / (2.0 * a * b), -1.0, 1.0)
+    out: FloatArray = np.degrees(np.arccos(cos))
+    return out
+
+
+def sliver_report(mesh: Mesh) -> str | None:
+    """Return a one-line description of the triangles flatter than ``MAX_ANGLE_DEG``, or None.
+
+    Such slivers appear where two region outlines touch or nearly touch (a circle inscribed
+    in a rectangle, say): the mesh must fill the cusp between them. The line names the worst
+    one's position and the regions around it, so that the user can move the outlines apart.
+    """
+    angles = largest_angles(mesh.points, mesh.triangles)
+    flat = np.flatnonzero(angles > MAX_ANGLE_DEG)
+    if flat.size == 0:
+        return None
+    worst = int(flat[np.argmax(angles[flat])])
+    x, y = mesh.points[mesh.triangles[worst]].mean(axis=0) / MM
+    around = np.flatnonzero(np.isin(mesh.triangles, mesh.triangles[worst]).any(axis=1))
+    names = sorted(name for name, tri in mesh.regions.items() if np.isin(around, tri).any())
+    beside = f", beside {' and '.join(names)}" if names else ""
+    return (
+        f"mesh: {flat.size} triangle(s) with an angle above {MAX_ANGLE_DEG:g} degrees (largest "
+        f"{angles[worst]:.1f} at x={x:.2f} mm, y={y:.2f} mm{beside}); region outlines that touch "
+        "or nearly touch force such slivers, where the conduction is less accurate: move the "
+        "outlines apart or nest one inside the other with a margin"
+    )
 
 
 def _mesh_with_gmsh(
