@@ -67,10 +67,16 @@ class Model:
 
 
 def shortest_feature(board: Board) -> float | None:
-    """Return the shortest interval between schedule breakpoints within the run, s."""
+    """Return the shortest interval between power changes of any part within the run, s.
+
+    A part whose power is on from t = 0 changes power at t = 0 as well (the board starts at
+    ambient), so a pulse from the start counts like any other.
+    """
     gaps = []
     for part in board.parts:
         bp = part.schedule.breakpoints(board.run.duration)
+        if part.schedule.value(0.0, side="right") != 0.0:
+            bp = np.concatenate([[0.0], bp])
         if len(bp) > 1:
             gaps.append(float(np.min(np.diff(bp))))
     return max(min(gaps), MIN_RESOLVED_TIME) if gaps else None

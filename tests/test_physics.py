@@ -216,3 +216,53 @@ def test_plane_wall_series_solution_at_two_times():
         assert t[i] == pytest.approx(when, abs=1e-12)
         exact = _plane_wall_top(when, q, 1.0, 1.0 / 2e6, 2e-3)
         assert top[i] == pytest.approx(exact, rel=0.02)
+
+
+def _skinned_slab(tau, **run):
+    """10 x 10 mm adiabatic board: 35 um copper over a 1.5 mm laminate; one pulse from t = 0.
+
+    The power enters through a footprint that is the whole board, so the problem is 1-D.
+    """
+    raw = raw_board()
+    raw["materials"] = _material("slab", 0.3, 1900.0, 1000.0)
+    raw["stackup"] = [
+        {"name": "top", "kind": "copper", "thickness_um": 35.0, "fill": 1.0},
+        {"name": "slab", "kind": "dielectric", "thickness_mm": 1.5, "material": "slab"},
+        {"name": "bot", "kind": "copper", "thickness_um": 35.0, "fill": 1.0},
+    ]
+    raw["outline"] = {"polygon_mm": [[0, 0], [10, 0], [10, 10], [0, 10]]}
+    raw["environment"] = {
+        "ambient_c": 20.0,
+        "h_top_w_per_m2k": 0.0,
+        "h_bottom_w_per_m2k": 0.0,
+        "h_edge_w_per_m2k": 0.0,
+    }
+    raw["part"] = [
+        {
+            "refdes": "S1",
+            "body_mm": [9.0, 9.0, 0.5],
+            "x_mm": 5.0,
+            "y_mm": 5.0,
+            "theta_jb_k_per_w": 0.0,
+            "body_heat_capacity_j_per_k": 0.0,
+            "tj_max_c": 500.0,
+            "power": {"steps": [[0.0, 1.0], [tau, 0.0]]},
+        }
+    ]
+    raw["run"] = {"duration_s": 2 * tau, "mesh_refinement": 0.3, **run}
+    return make_board(raw)
+
+
+def test_a_single_pulse_from_the_start_sets_the_through_thickness_grading():
+    # The power step at t = 0 is a change like any other: a part on from 0 to tau has a
+    # feature of length tau, and the laminate under the heated copper is graded for it
+    # (a single pulse from the start used to leave the stack ungraded: 500 um elements).
+    from boardheat.run import shortest_feature
+    from boardheat.stackup import build_stackup
+
+    board = _skinned_slab(0.02)
+    assert shortest_feature(board) == pytest.approx(0.02)
+    graded, plain = build_stackup(board, shortest_feature(board)), build_stackup(board)
+    assert graded.nz > plain.nz
+    first = graded.z[2] - graded.z[1]  # the laminate's first element, under the top copper
+    assert first < math.sqrt(0.3 / 1.9e6 * 0.02)
