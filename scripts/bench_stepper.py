@@ -35,17 +35,17 @@ model it holds (matrices, mesh), but not Python start-up or meshing. Where the r
 the figure is ``ru_maxrss`` of the whole child (marked with ``*``).
 
 ``--size S`` multiplies ``run.mesh_refinement`` by S. DOFs grow as S^2 only once the far field
-dominates the mesh; measured on the demo board: 13 k at S = 1, 52 k at 3, 230 k at 8, 1.0 M at
-22. Above ``--full-max-dofs`` only ``trbdf2`` runs unless ``--cases`` asks for more;
+dominates the mesh; measured on the demo board: 15.8 k at S = 1, 61 k at 3, 272 k at 8, 1.01 M
+at 20. Above ``--full-max-dofs`` only ``trbdf2`` runs unless ``--cases`` asks for more;
 ``--duration`` shortens the sequence and ``--cache-size`` bounds the factorizations held (each
-one holds 2.6 GiB at 1 M DOFs with PARDISO: 350 M stored entries of L).
+one holds 2.9 GiB at 1 M DOFs with PARDISO: 392 M stored entries of L).
 
 Usage::
 
     python scripts/bench_stepper.py --threads 1 --json demo.json   # demo board, every case
-    python scripts/bench_stepper.py --size 8                       # ~230 k DOFs, TR-BDF2 only
-    python scripts/bench_stepper.py --size 22 --duration 0.1 --cache-size 3   # ~1 M DOFs
-    python scripts/bench_stepper.py --size 22 --cache-gib 8.5    # 1 M DOFs, three factorizations
+    python scripts/bench_stepper.py --size 8                       # ~270 k DOFs, TR-BDF2 only
+    python scripts/bench_stepper.py --size 20 --duration 0.1 --cache-size 3   # ~1 M DOFs
+    python scripts/bench_stepper.py --size 20 --cache-gib 8.5    # 1 M DOFs, three factorizations
     python scripts/bench_stepper.py --show demo.json               # print a saved run again
 """
 
