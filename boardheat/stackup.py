@@ -123,9 +123,11 @@ def layer_nodes(
     if heated is None or diffusion_length is None or diffusion_length >= layer.thickness / 2:
         return np.linspace(0.0, 1.0, n_uniform + 1)
     sizes = [min(FIRST_FRACTION * diffusion_length, max_segment)]
-    while sum(sizes) < layer.thickness and len(sizes) < 12:
+    while sum(sizes) < layer.thickness:  # ends: the sizes reach max_segment > 0
         sizes.append(min(sizes[-1] * GRADING, max_segment))
-    widths = np.array(sizes) / sum(sizes)  # stretch the last elements to fill the layer
+    # the sizes overshoot the layer by less than the last one: scale them all down to fit,
+    # so that none exceeds max_segment and the first stays within the diffusion length
+    widths = np.array(sizes) / sum(sizes)
     nodes = np.concatenate([[0.0], np.cumsum(widths)])
     nodes[-1] = 1.0
     return nodes if heated == "top" else (1.0 - nodes)[::-1]

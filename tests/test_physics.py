@@ -218,8 +218,8 @@ def test_plane_wall_series_solution_at_two_times():
         assert top[i] == pytest.approx(exact, rel=0.02)
 
 
-def _skinned_slab(tau, **run):
-    """10 x 10 mm adiabatic board: 35 um copper over a 1.5 mm laminate; one pulse from t = 0.
+def _skinned_slab(tau, laminate_mm=1.5, **run):
+    """10 x 10 mm adiabatic board: 35 um copper over a laminate; one pulse from t = 0.
 
     The power enters through a footprint that is the whole board, so the problem is 1-D.
     """
@@ -227,7 +227,7 @@ def _skinned_slab(tau, **run):
     raw["materials"] = _material("slab", 0.3, 1900.0, 1000.0)
     raw["stackup"] = [
         {"name": "top", "kind": "copper", "thickness_um": 35.0, "fill": 1.0},
-        {"name": "slab", "kind": "dielectric", "thickness_mm": 1.5, "material": "slab"},
+        {"name": "slab", "kind": "dielectric", "thickness_mm": laminate_mm, "material": "slab"},
         {"name": "bot", "kind": "copper", "thickness_um": 35.0, "fill": 1.0},
     ]
     raw["outline"] = {"polygon_mm": [[0, 0], [10, 0], [10, 10], [0, 10]]}
@@ -325,3 +325,18 @@ def test_short_pulse_into_the_laminate_is_resolved_through_the_thickness(tau):
     assert t[i] == pytest.approx(tau, abs=1e-12)
     exact = _skin_surface_rise(tau, 1.0 / board.area, 8933.0 * 385.0 * 35e-6, 0.3, 1.9e6)
     assert top[i] == pytest.approx(exact, rel=0.06)
+
+
+def test_grading_of_a_thick_laminate_keeps_every_element_within_max_segment():
+    # A 3 mm laminate under the heated copper with a 0.1 ms pulse needs 13 graded elements
+    # (2 um doubling up to 0.5 mm, then 0.5 mm ones); a cap of 12 used to stretch them all by
+    # 20 %, past max_segment. Geometry only: sizes from the rule in stackup.layer_nodes.
+    from boardheat.stackup import FIRST_FRACTION, build_stackup
+
+    board = _skinned_slab(1e-4, laminate_mm=3.0)
+    stack = build_stackup(board, 1e-4)
+    laminate = np.diff(stack.z)[stack.seg_layer == 1]
+    assert laminate.sum() == pytest.approx(3e-3, rel=1e-12)
+    assert laminate.max() <= board.run.max_segment * (1 + 1e-12)
+    assert laminate[0] <= FIRST_FRACTION * math.sqrt(0.3 / 1.9e6 * 1e-4) * (1 + 1e-12)
+    assert laminate.size >= 13
