@@ -24,8 +24,10 @@ conductances shared by area.
 
 from __future__ import annotations
 
+import math
 import time
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import numpy.typing as npt
@@ -56,7 +58,9 @@ class System:
         ``board:loss`` boundary heat-flow coefficient row (W/K)
     probe_names : names of the rows of P
     loss_offset : W; boundary heat flow out of the board is ``P[board:loss] @ T - loss_offset``
-    nz : through-thickness nodes; n_fe : finite-element DOFs (ladder DOFs follow)
+    nz : through-thickness nodes; n_fe : finite-element nodes (ladder DOFs follow)
+    prolong : (n_fe + n_ladder, n_dofs) CSR or None: the unknowns are the nodes kept after
+        columns far from the heat sources dropped their graded nodes; all nodes = prolong @ T
     fe_capacity : J/K, heat capacity of the board laminate (without parts and ladders)
     total_capacity : J/K, every capacity in M (board, part bodies, junction ladders)
     surface_area : m^2, one face of the board (outline minus holes)
@@ -76,11 +80,21 @@ class System:
     total_capacity: float
     surface_area: float
     seconds: float
+    prolong: sp.csr_matrix | None = None
 
     @property
     def n_dofs(self) -> int:
         """Return the number of unknowns."""
         return int(self.A.shape[0])
+
+    def fe_field(self, T: FloatArray) -> FloatArray:
+        """Return the temperature (n_fe,) of every finite-element node, ``node * nz + k``.
+
+        Where columns dropped graded nodes (``prolong``), those are interpolated back.
+        """
+        full = T if self.prolong is None else self.prolong @ T
+        out: FloatArray = np.asarray(full[: self.n_fe], dtype=np.float64)
+        return out
 
     def probe(self, name: str) -> int:
         """Return the row index of a named probe."""
@@ -141,13 +155,103 @@ def _face_weights(mesh: Mesh, tri: IntArray, areas: FloatArray) -> FloatArray:
     return w
 
 
-def assemble(mesh: Mesh, stack: Stackup, board: Board, consistent: bool = False) -> System:
+def _drop_far_levels(
+    mesh: Mesh, stack: Stackup, board: Board, n: int
+) -> tuple[sp.csr_matrix, IntArray] | None:
+    """Return the prolongation from kept to all unknowns and the column of each kept one.
+
+    The column is the mesh node (-1 for junction-ladder unknowns); None if every node is kept.
+
+    A column (mesh node) farther than ``GradedLayer.reach`` from every footprint on the
+    graded laminate's side does without the nodes that laminate holds only for the shortest
+    pulse: there only slow behaviour matters (the issue of through-thickness resolution). Its
+    dropped nodes follow the kept ones above and below linearly in z. Unknowns keep the order
+    node-major, through-thickness fastest; junction-ladder unknowns stay last.
+    """
+    nz, n2 = stack.nz, mesh.n_nodes
+    keep = np.ones((n2, nz), dtype=bool)
+    links: list[tuple[IntArray, int, int, int]] = []  # (columns, dropped, above, below)
+    for layer in stack.graded:
+        near = np.zeros(n2, dtype=bool)
+        for part in board.parts:
+            if part.side == layer.side:
+                near |= _within(mesh.points, part, layer.reach)
+        far = np.flatnonzero(~near)
+        if far.size == 0:
+            continue
+        keep[np.ix_(far, layer.drop)] = False
+        links += [
+            (far, int(k), int(a), int(b))
+            for k, a, b in zip(layer.drop, layer.above, layer.below, strict=True)
+        ]
+    if keep.all():
+        return None
+    index = np.full((n2, nz), -1, dtype=np.int64)
+    index[keep] = np.arange(int(keep.sum()))
+    n_kept = int(keep.sum())
+    fine = np.arange(n2)[:, None] * nz + np.arange(nz)[None, :]
+    rows, cols, vals = [fine[keep]], [index[keep]], [np.ones(n_kept)]
+    z = stack.z
+    for columns, k, a, b in links:
+        w_above = (z[b] - z[k]) / (z[b] - z[a])
+        rows += [fine[columns, k], fine[columns, k]]
+        cols += [index[columns, a], index[columns, b]]
+        vals += [np.full(columns.size, w_above), np.full(columns.size, 1.0 - w_above)]
+    n_fe = n2 * nz
+    rows.append(np.arange(n_fe, n))
+    cols.append(np.arange(n_kept, n_kept + n - n_fe))
+    vals.append(np.ones(n - n_fe))
+    prolong = sp.csr_matrix(
+        (np.concatenate(vals), (np.concatenate(rows), np.concatenate(cols))),
+        shape=(n, n_kept + n - n_fe),
+    )
+    column = np.concatenate([np.nonzero(keep)[0], np.full(n - n_fe, -1)]).astype(np.int64)
+    return prolong, column
+
+
+def _within(points: FloatArray, part: Any, distance: float) -> npt.NDArray[np.bool_]:
+    """Return which points lie within ``distance`` of the part's footprint rectangle."""
+    c, s = math.cos(part.rotation), math.sin(part.rotation)
+    d = points - part.center
+    along = np.abs(d[:, 0] * c + d[:, 1] * s) - part.footprint[0] / 2.0
+    across = np.abs(-d[:, 0] * s + d[:, 1] * c) - part.footprint[1] / 2.0
+    gap = np.hypot(np.maximum(along, 0.0), np.maximum(across, 0.0))
+    out: npt.NDArray[np.bool_] = gap <= distance
+    return out
+
+
+def _lumped_in_columns(
+    prolong: sp.csr_matrix, A_rest: sp.csr_matrix, column: IntArray
+) -> sp.csr_matrix:
+    """Return P^T A_rest P with couplings inside a column moved onto the diagonal.
+
+    A_rest holds the in-plane conduction (K2D (x) Mz with Mz lumped: it couples equal levels
+    of neighbouring columns only), the boundary terms and the junction ladders. Interpolating
+    a dropped node between two kept ones of its column makes P^T A_rest P couple those two
+    with a positive weight (the dropped node's diagonal times both interpolation weights),
+    which would break the M-matrix property. Moving every such coupling onto the diagonal is
+    the row-sum lumping of the through-thickness weights that the full model applies to Mz:
+    row sums, symmetry and the sign pattern are kept. ``column`` is the mesh node of each
+    kept unknown (-1 for junction-ladder unknowns).
+    """
+    R = (prolong.T @ A_rest @ prolong).tocoo()
+    same = (R.row != R.col) & (column[R.row] == column[R.col]) & (column[R.row] >= 0)
+    diagonal = np.bincount(R.row[same], weights=R.data[same], minlength=R.shape[0])
+    kept = sp.coo_matrix((R.data[~same], (R.row[~same], R.col[~same])), shape=R.shape)
+    return (kept + sp.diags(diagonal)).tocsr()
+
+
+def assemble(
+    mesh: Mesh, stack: Stackup, board: Board, consistent: bool = False, far_columns: bool = True
+) -> System:
     """Assemble capacity, conductance, loads and probes of the board.
 
     Parameters
     ----------
     mesh, stack, board : outputs of the meshing, stackup and board stages
     consistent : use consistent instead of row-sum lumped matrices (verification only)
+    far_columns : let columns far from the heat sources drop the nodes graded for the
+        shortest pulse (see :func:`_drop_far_levels`); False keeps every node everywhere
     """
     start = time.perf_counter()
     nz = stack.nz
@@ -167,20 +271,28 @@ def assemble(mesh: Mesh, stack: Stackup, board: Board, consistent: bool = False)
         Mz = np.eye(2) / 2.0
     Kz = np.array([[1.0, -1.0], [-1.0, 1.0]])  # divided by h
 
-    # local prism matrices (n_tri, ns, 3, 2, 3, 2) assembled segment by segment to bound memory
-    rows_l, cols_l, vals_l = [], [], []
+    # local prism matrices (n_tri, ns, 3, 2, 3, 2) assembled segment by segment to bound memory;
+    # the in-plane part (rows_l ...) and the through-thickness part (rows_t ...) apart, since
+    # columns that drop graded nodes treat them differently (_drop_far_levels)
+    rows_l: list[IntArray] = []
+    cols_l: list[IntArray] = []
+    vals_l: list[FloatArray] = []
+    rows_t: list[IntArray] = []
+    cols_t: list[IntArray] = []
+    vals_t: list[FloatArray] = []
     node = tri[:, :, None] * nz  # (n_tri, 3, 1)
     for s in range(ns):
         dof = node + np.array([s, s + 1])[None, None, :]  # (n_tri, 3, 2)
-        loc = np.einsum("e,eij,ab->eiajb", k_xy[:, s] * h[s], K2, Mz) + np.einsum(
-            "e,eij,ab->eiajb", k_z[:, s] / h[s], M2, Kz
-        )
-        r = np.broadcast_to(dof[:, :, :, None, None], loc.shape)
-        c = np.broadcast_to(dof[:, None, None, :, :], loc.shape)
-        keep = loc != 0.0
-        rows_l.append(r[keep])
-        cols_l.append(c[keep])
-        vals_l.append(loc[keep])
+        r = np.broadcast_to(dof[:, :, :, None, None], (len(tri), 3, 2, 3, 2))
+        c = np.broadcast_to(dof[:, None, None, :, :], (len(tri), 3, 2, 3, 2))
+        for loc, rows, cols, vals in (
+            (np.einsum("e,eij,ab->eiajb", k_xy[:, s] * h[s], K2, Mz), rows_l, cols_l, vals_l),
+            (np.einsum("e,eij,ab->eiajb", k_z[:, s] / h[s], M2, Kz), rows_t, cols_t, vals_t),
+        ):
+            keep = loc != 0.0
+            rows.append(r[keep])
+            cols.append(c[keep])
+            vals.append(loc[keep])
     # capacity: rho c M2 (x) Mz
     cap_rows, cap_cols, cap_vals = [], [], []
     for s in range(ns):
@@ -287,7 +399,7 @@ def assemble(mesh: Mesh, stack: Stackup, board: Board, consistent: bool = False)
     boundary[:n_fe] = loss + fixed
     g_full = np.zeros(n)
     g_full[:n_fe] = g
-    A = sp.coo_matrix(
+    A_rest = sp.coo_matrix(
         (
             np.concatenate([*vals_l, *lad_vals, boundary]),
             (
@@ -297,22 +409,36 @@ def assemble(mesh: Mesh, stack: Stackup, board: Board, consistent: bool = False)
         ),
         shape=(n, n),
     ).tocsr()
-    A.sum_duplicates()
+    A_through = sp.coo_matrix(
+        (np.concatenate(vals_t), (np.concatenate(rows_t), np.concatenate(cols_t))), shape=(n, n)
+    ).tocsr()
     B = sp.coo_matrix(
         (np.concatenate(b_vals), (np.concatenate(b_rows), np.concatenate(b_cols))),
         shape=(n, n_parts),
     ).tocsr()
+    reduction = _drop_far_levels(mesh, stack, board, n) if far_columns else None
+    prolong = None if reduction is None else reduction[0]
+    if reduction is None:
+        A = (A_through + A_rest).tocsr()
+    else:
+        prolong, column = reduction
+        A = (prolong.T @ A_through @ prolong + _lumped_in_columns(prolong, A_rest, column)).tocsr()
+        M = (prolong.T @ M @ prolong) if consistent else sp.diags(prolong.T @ M.diagonal())
+        M = M.tocsr()
+        g_full = prolong.T @ g_full
+        B = (prolong.T @ B).tocsr()
+    A.sum_duplicates()
     # board-level rows: capacity-weighted mean temperature and boundary heat-flow coefficient
     cap_all = np.asarray(M.sum(axis=1)).ravel()
     total_capacity = float(cap_all.sum())
     mean_row = cap_all / total_capacity
-    loss_row = boundary
+    loss_row = boundary if prolong is None else prolong.T @ boundary
+    part_rows = sp.coo_matrix(
+        (np.concatenate(p_vals), (np.concatenate(p_rows), np.concatenate(p_cols))), shape=(row, n)
+    ).tocsr()
     P = sp.vstack(
         [
-            sp.coo_matrix(
-                (np.concatenate(p_vals), (np.concatenate(p_rows), np.concatenate(p_cols))),
-                shape=(row, n),
-            ),
+            part_rows if prolong is None else part_rows @ prolong,
             sp.csr_matrix(mean_row[None, :]),
             sp.csr_matrix(loss_row[None, :]),
         ]
@@ -334,4 +460,5 @@ def assemble(mesh: Mesh, stack: Stackup, board: Board, consistent: bool = False)
         total_capacity=total_capacity,
         surface_area=surface_area,
         seconds=time.perf_counter() - start,
+        prolong=prolong,
     )

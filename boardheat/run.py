@@ -137,8 +137,7 @@ def _traces(model: Model, t: FloatArray, probes: FloatArray) -> Traces:
 
 
 def _hot_field(model: Model, field: FloatArray, time_s: float, refdes: str) -> HotField:
-    nz, n_fe = model.system.nz, model.system.n_fe
-    fe = field[:n_fe].reshape(-1, nz)
+    fe = model.system.fe_field(field).reshape(-1, model.system.nz)
     return HotField(
         points=model.mesh.points,
         triangles=model.mesh.triangles,
@@ -163,7 +162,7 @@ def _field_series(model: Model, fields: list[tuple[float, FloatArray]]) -> Field
     ).astype(np.int64)
     unique = sorted({float(t): f for t, f in fields}.items())
     times = np.array([t for t, _ in unique])
-    values = np.array([f[: s.n_fe] for _, f in unique])
+    values = np.array([s.fe_field(f) for _, f in unique])
     return FieldSeries(points=points, wedges=wedges, times=times, values=values)
 
 
@@ -285,7 +284,7 @@ def _solve(
         traces = Traces(**{**traces.__dict__, "power": final_power[None, :]})
         hot_index = int(np.argmax(tj_steady - np.array([p.tj_max for p in board.parts])))
         hot = _hot_field(model, steady_field, run.duration, board.parts[hot_index].refdes)
-        lam_peak, lam_time = float(steady_field[: s.n_fe].max()), run.duration
+        lam_peak, lam_time = float(s.fe_field(steady_field).max()), run.duration
         series = _field_series(model, [(run.duration, steady_field)])
     else:
         method = options.method or run.method
@@ -330,8 +329,8 @@ def _solve(
             *sol.peak_fields.values(),
             *sol.snapshots.items(),
         ]
-        lam_time, lam_field = max(candidates, key=lambda c: float(c[1][: s.n_fe].max()))
-        lam_peak = float(lam_field[: s.n_fe].max())
+        lam_time, lam_field = max(candidates, key=lambda c: float(s.fe_field(c[1]).max()))
+        lam_peak = float(s.fe_field(lam_field).max())
         series = _field_series(
             model, [(hot_t, hot_T), (run.duration, sol.final), *sol.snapshots.items()]
         )

@@ -28,6 +28,29 @@ IntArray = npt.NDArray[np.int64]
 
 
 @dataclass(frozen=True)
+class GradedLayer:
+    """Nodes a laminate holds only to resolve the shortest pulse, and how columns drop them.
+
+    Attributes
+    ----------
+    side : the heated outer copper layer's side, ``"top"`` or ``"bottom"``
+    drop : (n_drop,) int, through-thickness node indices that columns far from that side's
+        parts do without
+    above, below : (n_drop,) int, the kept nodes each dropped one is interpolated between
+        (linearly in z)
+    reach : m, how far heat spreads sideways in the heated copper during the shortest pulse,
+        ``REACH_LENGTHS`` diffusion lengths sqrt(alpha_xy t) of that copper; columns farther
+        than this from every footprint on ``side`` drop the nodes
+    """
+
+    side: str
+    drop: IntArray
+    above: IntArray
+    below: IntArray
+    reach: float
+
+
+@dataclass(frozen=True)
 class Stackup:
     """Through-thickness discretisation of the board, node 0 at the top surface.
 
@@ -39,6 +62,7 @@ class Stackup:
         W/(m K), W/(m K), J/(m^3 K)
     layer_top, layer_bottom : (n_layers,) int, node index at the top / bottom of each layer
     layers : the board's layers, top to bottom
+    graded : the laminates graded for the shortest pulse (see :class:`GradedLayer`)
     """
 
     z: FloatArray
@@ -49,6 +73,7 @@ class Stackup:
     layer_top: IntArray
     layer_bottom: IntArray
     layers: tuple[Layer, ...]
+    graded: tuple[GradedLayer, ...] = ()
 
     @property
     def nz(self) -> int:
@@ -102,6 +127,26 @@ def via_enhanced(
 #: 3.1 %, 7.1 % and 10.2 %, two nodes fewer).
 FIRST_FRACTION = 0.5
 GRADING = 2.0
+#: lateral reach of a pulse's heat in the heated copper, in diffusion lengths sqrt(alpha t):
+#: beyond 3 of them the error-function profile of a suddenly heated half-space is below
+#: erfc(1.5) = 3.4 % of its surface value (Carslaw & Jaeger sec. 2.4; recalled from memory)
+REACH_LENGTHS = 3.0
+
+
+def _coarse_subset(z: FloatArray, max_segment: float) -> npt.NDArray[np.bool_]:
+    """Return a boolean mask of the nodes ``z`` (ascending, ends kept) a coarse column keeps.
+
+    Greedy from the first node: keep the farthest node within ``max_segment`` of the last
+    kept one, so that the coarse elements respect ``max_segment`` and nest in the graded ones.
+    """
+    keep = np.zeros(z.size, dtype=bool)
+    keep[0] = keep[-1] = True
+    last = 0
+    while last < z.size - 1:
+        reach = np.flatnonzero(z <= z[last] + max_segment * (1.0 + 1e-9))
+        last = max(int(reach[-1]), last + 1)
+        keep[last] = True
+    return keep
 
 
 def layer_nodes(
@@ -145,6 +190,7 @@ def build_stackup(board: Board, shortest_time: float | None = None) -> Stackup:
     seg_layer: list[int] = []
     props: list[tuple[float, float, float]] = []
     top, bottom = [], []
+    graded: list[GradedLayer] = []
     layers = board.layers
     sides = {p.side for p in board.parts}
     last = len(layers) - 1
@@ -160,6 +206,25 @@ def build_stackup(board: Board, shortest_time: float | None = None) -> Stackup:
             heated = "bottom"
         nodes = layer_nodes(layer, board.run.max_segment, diffusion, heated)
         k_xy, k_z, rho_c = (float(v) for v in layer_properties(layer, layer.fill))
+        if heated is not None and shortest_time is not None:
+            first = len(z) - 1
+            keep = _coarse_subset(layer.thickness * nodes, board.run.max_segment)
+            uniform = math.ceil(layer.thickness / board.run.max_segment - 1e-9) + 1
+            if not keep.all() and nodes.size > uniform:
+                kept = np.flatnonzero(keep)
+                drop = np.flatnonzero(~keep)
+                where = np.searchsorted(kept, drop)
+                copper = layers[0 if heated == "top" else last].material
+                graded.append(
+                    GradedLayer(
+                        side=heated,
+                        drop=first + drop,
+                        above=first + kept[where - 1],
+                        below=first + kept[where],
+                        reach=REACH_LENGTHS
+                        * math.sqrt(copper.k_inplane / copper.rho_c * shortest_time),
+                    )
+                )
         top.append(len(z) - 1)
         z_top = z[-1]
         for i in range(1, len(nodes)):
@@ -182,6 +247,7 @@ def build_stackup(board: Board, shortest_time: float | None = None) -> Stackup:
         layer_top=np.array(top, dtype=np.int64),
         layer_bottom=np.array(bottom, dtype=np.int64),
         layers=board.layers,
+        graded=tuple(graded),
     )
     for a in (out.z, out.seg_layer, out.k_xy, out.k_z, out.rho_c, out.layer_top, out.layer_bottom):
         a.setflags(write=False)

@@ -340,3 +340,36 @@ def test_grading_of_a_thick_laminate_keeps_every_element_within_max_segment():
     assert laminate.max() <= board.run.max_segment * (1 + 1e-12)
     assert laminate[0] <= FIRST_FRACTION * math.sqrt(0.3 / 1.9e6 * 1e-4) * (1 + 1e-12)
     assert laminate.size >= 13
+
+
+def test_coarse_columns_keep_a_nested_subset_within_max_segment():
+    # Greedy subset of graded nodes (ends kept): every coarse element <= max_segment and made
+    # of whole graded ones. Hand-worked: from 0 the farthest node within 0.5 is 0.3, then
+    # 0.7, 1.2, 1.7 and 2.0; 0.1 is dropped.
+    from boardheat.stackup import _coarse_subset
+
+    z = np.array([0.0, 0.1, 0.3, 0.7, 1.2, 1.7, 2.0])
+    keep = _coarse_subset(z, 0.5)
+    assert keep.tolist() == [True, False, True, True, True, True, True]
+    assert np.diff(z[keep]).max() <= 0.5
+
+
+def test_graded_laminate_names_the_nodes_far_columns_drop():
+    # The slab board graded for 20 ms: every interior laminate node is dropped far from the
+    # part (the 1.5 mm laminate's coarse split at 0.5 mm keeps only some of them), each
+    # between kept neighbours; the sideways reach is 3 diffusion lengths of the copper,
+    # 3 sqrt(k / (rho c) t) with the built-in copper (k 390, rho c 8933 x 385).
+    from boardheat.run import shortest_feature
+    from boardheat.stackup import build_stackup
+
+    board = _skinned_slab(0.02)
+    stack = build_stackup(board, shortest_feature(board))
+    (graded,) = stack.graded
+    assert graded.side == "top"
+    assert graded.reach == pytest.approx(3 * math.sqrt(390.0 / (8933.0 * 385.0) * 0.02))
+    top, bottom = int(stack.layer_top[1]), int(stack.layer_bottom[1])
+    assert np.all((graded.drop > top) & (graded.drop < bottom))
+    assert np.all(graded.above < graded.drop)
+    assert np.all(graded.below > graded.drop)
+    kept = np.setdiff1d(np.arange(top, bottom + 1), graded.drop)
+    assert np.diff(stack.z[kept]).max() <= board.run.max_segment * (1 + 1e-9)
