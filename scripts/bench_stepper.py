@@ -35,17 +35,17 @@ model it holds (matrices, mesh), but not Python start-up or meshing. Where the r
 the figure is ``ru_maxrss`` of the whole child (marked with ``*``).
 
 ``--size S`` multiplies ``run.mesh_refinement`` by S. DOFs grow as S^2 only once the far field
-dominates the mesh; measured on the demo board: 15.8 k at S = 1, 61 k at 3, 272 k at 8, 1.01 M
-at 20. Above ``--full-max-dofs`` only ``trbdf2`` runs unless ``--cases`` asks for more;
+dominates the mesh; measured on the demo board: 12 k at S = 1, 51 k at 3, 228 k at 8, 1.02 M
+at 24. Above ``--full-max-dofs`` only ``trbdf2`` runs unless ``--cases`` asks for more;
 ``--duration`` shortens the sequence and ``--cache-size`` bounds the factorizations held (each
-one holds 2.9 GiB at 1 M DOFs with PARDISO: 392 M stored entries of L).
+one holds 2.5 GiB at 1 M DOFs with PARDISO: 334 M stored entries of L).
 
 Usage::
 
     python scripts/bench_stepper.py --threads 1 --json demo.json   # demo board, every case
-    python scripts/bench_stepper.py --size 8                       # ~270 k DOFs, TR-BDF2 only
-    python scripts/bench_stepper.py --size 20 --duration 0.1 --cache-size 3   # ~1 M DOFs
-    python scripts/bench_stepper.py --size 20 --cache-gib 8.5    # 1 M DOFs, three factorizations
+    python scripts/bench_stepper.py --size 8                       # ~230 k DOFs, TR-BDF2 only
+    python scripts/bench_stepper.py --size 24 --duration 0.1 --cache-size 3   # ~1 M DOFs
+    python scripts/bench_stepper.py --size 24 --cache-gib 8.5    # 1 M DOFs, three factorizations
     python scripts/bench_stepper.py --show demo.json               # print a saved run again
 """
 
@@ -141,10 +141,14 @@ def scaled_board(spec: Figures) -> Any:
 
 def model_figures(model: Any) -> Figures:
     s = model.system
+    every = s.n_dofs if s.prolong is None else s.prolong.shape[0]  # all nodes + ladder unknowns
+    ladders = every - s.n_fe
     return {
         "dofs": int(s.n_dofs),
         "nodes_2d": int(model.mesh.n_nodes),
         "layers_z": int(s.nz),
+        # finite-element nodes kept as unknowns (far columns drop graded ones)
+        "nodes_kept": int(s.n_dofs - ladders),
         "seconds_mesh": float(model.mesh.seconds),
         "seconds_assembly": float(s.seconds),
     }
@@ -547,10 +551,13 @@ def report(fig: Figures) -> None:
         f"load average (1 min) at start {fig['load_average']:.2f}, "
         f"at end {fig['load_average_end']:.2f}"
     )
-    extra = head["dofs"] - head["nodes_2d"] * head["layers_z"]
+    nodes = head["nodes_2d"] * head["layers_z"]
+    kept = head.get("nodes_kept", nodes)
+    extra = head["dofs"] - kept
     print(
         f"model            {head['dofs']} DOFs ({head['nodes_2d']} board-plane nodes x "
         f"{head['layers_z']} through-thickness nodes"
+        + (f", {kept} of those {nodes} kept" if kept != nodes else "")
         + (f" + {extra} junction-network unknowns" if extra else "")
         + f"); mesh {head['seconds_mesh']:.2f} s, assembly {head['seconds_assembly']:.2f} s"
     )

@@ -222,7 +222,7 @@ class _Controller:
 
         Periodic schedules (pulse trains) repeat the same gaps between stops, and left to
         itself the controller covers each with the same ramp of three or four step sizes. When
-        the cache cannot hold them all (large boards: one factorization per 2.9 GiB at 1 M
+        the cache cannot hold them all (large boards: one factorization per 2.5 GiB at 1 M
         DOFs), every ramp factors them again. Equal steps need one matrix per gap, held
         from one period to the next. Their number is the step count of the gap's first pass
         (raised after a rejection to what the estimate asked for), and the plan is taken only

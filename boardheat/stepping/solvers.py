@@ -334,7 +334,7 @@ def memory_budget() -> int:
 
     ``BOARDHEAT_CACHE_GIB`` (a number of GiB > 0) sets another limit. On large boards the
     budget decides how many step sizes stay factored: measured on the 1 M DOF benchmark board
-    (2.9 GiB per factorization), a 5.9 GiB budget holds two.
+    (2.5 GiB per factorization), a 5.9 GiB budget holds two.
     """
     forced = os.environ.get("BOARDHEAT_CACHE_GIB", "").strip()
     if forced:
@@ -427,8 +427,8 @@ class _FactorCache:
     made included: before a new factorization, the least recently used ones are freed until
     it fits (its size is that of the previous one; with PARDISO every factorization shares
     one analysis and so has exactly the same size). The newest is always kept, even alone
-    over budget. With PARDISO one factorization holds 0.58 GiB at 272 k DOFs and 2.9 GiB at
-    1.01 M DOFs (the board meshes of ``scripts/bench_stepper.py --size 8`` and ``--size 20``).
+    over budget. With PARDISO one factorization holds 0.42 GiB at 228 k DOFs and 2.5 GiB at
+    1.02 M DOFs (the board meshes of ``scripts/bench_stepper.py --size 8`` and ``--size 24``).
     ``evictions`` counts the factorizations freed to make room; once it is positive, the step
     controller plans for a crowded cache (see ``_Controller.propose``).
     """
