@@ -27,13 +27,12 @@ from __future__ import annotations
 import math
 import time
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 import numpy.typing as npt
 import scipy.sparse as sp
 
-from boardheat.board import Board
+from boardheat.board import Board, Part
 from boardheat.junction import ladder_matrices
 from boardheat.meshing import Mesh
 from boardheat.stackup import Stackup, layer_properties, via_enhanced
@@ -186,9 +185,9 @@ def _drop_far_levels(
         ]
     if keep.all():
         return None
-    index = np.full((n2, nz), -1, dtype=np.int64)
-    index[keep] = np.arange(int(keep.sum()))
     n_kept = int(keep.sum())
+    index = np.full((n2, nz), -1, dtype=np.int64)
+    index[keep] = np.arange(n_kept)
     fine = np.arange(n2)[:, None] * nz + np.arange(nz)[None, :]
     rows, cols, vals = [fine[keep]], [index[keep]], [np.ones(n_kept)]
     z = stack.z
@@ -209,7 +208,7 @@ def _drop_far_levels(
     return prolong, column
 
 
-def _within(points: FloatArray, part: Any, distance: float) -> npt.NDArray[np.bool_]:
+def _within(points: FloatArray, part: Part, distance: float) -> npt.NDArray[np.bool_]:
     """Return which points lie within ``distance`` of the part's footprint rectangle."""
     c, s = math.cos(part.rotation), math.sin(part.rotation)
     d = points - part.center
@@ -417,7 +416,7 @@ def assemble(
         shape=(n, n_parts),
     ).tocsr()
     reduction = _drop_far_levels(mesh, stack, board, n) if far_columns else None
-    prolong = None if reduction is None else reduction[0]
+    prolong = None
     if reduction is None:
         A = (A_through + A_rest).tocsr()
     else:

@@ -208,9 +208,9 @@ def build_stackup(board: Board, shortest_time: float | None = None) -> Stackup:
         k_xy, k_z, rho_c = (float(v) for v in layer_properties(layer, layer.fill))
         if heated is not None and shortest_time is not None:
             first = len(z) - 1
+            # an ungraded (uniform) split keeps all its nodes: none to drop
             keep = _coarse_subset(layer.thickness * nodes, board.run.max_segment)
-            uniform = math.ceil(layer.thickness / board.run.max_segment - 1e-9) + 1
-            if not keep.all() and nodes.size > uniform:
+            if not keep.all():
                 kept = np.flatnonzero(keep)
                 drop = np.flatnonzero(~keep)
                 where = np.searchsorted(kept, drop)
