@@ -521,7 +521,8 @@ def test_crowded_cache_covers_a_recurring_gap_with_equal_steps():
     # train's off time) first taken adaptively from h = 4 ms with the cache crowded: the step
     # grows two rungs at a time (4, 16, 64 ms), then lands with one step of the last 11 ms:
     # 4 steps, 4 matrices, 92 solves. Met again with the cache crowded, the gap is covered by
-    # 4 equal steps of 23.75 ms (12 solves, one matrix kept from period to period).
+    # 4 equal steps of 23.75 ms (12 solves, one matrix kept from period to period). Errors of
+    # 1.0 ask for the same step again (0.9 x 23.75 ms), so the plan keeps its 4 steps.
     from boardheat.stepping.control import _Controller
 
     def nothing(dt):
@@ -532,7 +533,7 @@ def test_crowded_cache_covers_a_recurring_gap_with_equal_steps():
     np.testing.assert_allclose(first, [0.004, 0.016, 0.064, 0.011], rtol=1e-12)
     _pass_over_gap(c, 0.095, 0.1, nothing, crowded=True)  # the 5 ms on time
     c.h = 0.004  # as a restart after the jump would set it
-    second = _pass_over_gap(c, 0.1, 0.195, nothing, crowded=True)
+    second = _pass_over_gap(c, 0.1, 0.195, nothing, crowded=True, err=1.0)
     np.testing.assert_allclose(second, [0.02375] * 4, rtol=1e-12)
     assert len(set(second)) == 1  # one matrix: the steps are bitwise equal
 
@@ -558,6 +559,39 @@ def test_crowded_cache_covers_a_recurring_gap_with_equal_steps():
     np.testing.assert_allclose(
         _pass_over_gap(c, 0.4, 0.495, nothing, crowded=True), [0.095 / 9] * 9, rtol=1e-12
     )
+    # Those 9 steps had errors of 0.01, which allow 5 x 10.56 ms: 2 steps would do, but a
+    # plan never again goes below the 4 steps that failed, so the next one has 5.
+    c.h = 0.004
+    np.testing.assert_allclose(
+        _pass_over_gap(c, 0.5, 0.595, nothing, crowded=True), [0.019] * 5, rtol=1e-12
+    )
+
+
+def test_crowded_plan_takes_fewer_steps_when_the_estimate_allows():
+    # The next step the estimate allows after a step of error e is 0.9 e^(-1/3) times it
+    # (Hairer, Norsett & Wanner, Solving ODEs I, 2nd ed., Sec. II.4, eq. 4.13, recalled from
+    # memory; local error of order 3).
+    # A plan of 4 x 23.75 ms with e = 0.216 allows 1.5 x 23.75 = 35.6 ms, so the next pass of
+    # the same gap takes ceil(95 / 35.6) = 3 equal steps; with e = 1 nothing changes.
+    from boardheat.stepping.control import _Controller
+
+    def nothing(dt):
+        return False
+
+    c = _Controller(StepperOptions(), first=0.004, t_end=10.0, unit=1e-3)
+    _pass_over_gap(c, 0.0, 0.095, nothing, crowded=True)
+    _pass_over_gap(c, 0.095, 0.1, nothing, crowded=True)
+    c.h = 0.004
+    planned = _pass_over_gap(c, 0.1, 0.195, nothing, crowded=True, err=0.216)
+    np.testing.assert_allclose(planned, [0.02375] * 4, rtol=1e-12)
+    _pass_over_gap(c, 0.195, 0.2, nothing, crowded=True)
+    c.h = 0.004
+    fewer = _pass_over_gap(c, 0.2, 0.295, nothing, crowded=True, err=1.0)
+    np.testing.assert_allclose(fewer, [0.095 / 3] * 3, rtol=1e-12)
+    _pass_over_gap(c, 0.295, 0.3, nothing, crowded=True)
+    c.h = 0.004
+    same = _pass_over_gap(c, 0.3, 0.395, nothing, crowded=True, err=1.0)
+    np.testing.assert_allclose(same, [0.095 / 3] * 3, rtol=1e-12)
 
 
 def test_crowded_plan_is_dropped_when_adaptive_steps_cost_less():
