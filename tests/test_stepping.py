@@ -519,10 +519,12 @@ def _pass_over_gap(c, t, t_stop, cached, crowded, err=0.01):
 def test_crowded_cache_covers_a_recurring_gap_with_equal_steps():
     # Cost model of the controller: a step 3 solves, a factorization 20. A 95 ms gap (a pulse
     # train's off time) first taken adaptively from h = 4 ms with the cache crowded: the step
-    # grows two rungs at a time (4, 16, 64 ms), then lands with one step of the last 11 ms:
-    # 4 steps, 4 matrices, 92 solves. Met again with the cache crowded, the gap is covered by
-    # 4 equal steps of 23.75 ms (12 solves, one matrix kept from period to period). Errors of
-    # 1.0 ask for the same step again (0.9 x 23.75 ms), so the plan keeps its 4 steps.
+    # grows two rungs at a time (4, 16 ms); the next rung, 64 ms, is not factored and two of
+    # it reach the stop, so the last 75 ms are two equal steps (one new matrix instead of
+    # 64 ms and then 11 ms): 4 steps, 3 matrices, 72 solves. Met again with the cache
+    # crowded, the gap is covered by 4 equal steps of 23.75 ms (12 solves, one matrix kept
+    # from period to period). Errors of 1.0 ask for the same step again (0.9 x 23.75 ms), so
+    # the plan keeps its 4 steps.
     from boardheat.stepping.control import _Controller
 
     def nothing(dt):
@@ -530,7 +532,7 @@ def test_crowded_cache_covers_a_recurring_gap_with_equal_steps():
 
     c = _Controller(StepperOptions(), first=0.004, t_end=10.0, unit=1e-3)
     first = _pass_over_gap(c, 0.0, 0.095, nothing, crowded=True)
-    np.testing.assert_allclose(first, [0.004, 0.016, 0.064, 0.011], rtol=1e-12)
+    np.testing.assert_allclose(first, [0.004, 0.016, 0.0375, 0.0375], rtol=1e-12)
     _pass_over_gap(c, 0.095, 0.1, nothing, crowded=True)  # the 5 ms on time
     c.h = 0.004  # as a restart after the jump would set it
     second = _pass_over_gap(c, 0.1, 0.195, nothing, crowded=True, err=1.0)
@@ -592,6 +594,41 @@ def test_crowded_plan_takes_fewer_steps_when_the_estimate_allows():
     c.h = 0.004
     same = _pass_over_gap(c, 0.3, 0.395, nothing, crowded=True, err=1.0)
     np.testing.assert_allclose(same, [0.095 / 3] * 3, rtol=1e-12)
+
+
+def test_crowded_cache_meets_a_near_stop_in_equal_steps_of_one_new_matrix():
+    # With the cache crowded, a step h = 64 ms that is not factored and a stop 150 ms away
+    # (at most 4 of them): three equal steps of 50 ms, one new matrix, where rungs would take
+    # 64 ms twice and then 22 ms, two. No step exceeds h. Not when h is factored already, not
+    # with the cache roomy, not when the stop is more than 4 steps away.
+    from boardheat.stepping.control import _Controller
+
+    def controller():
+        c = _Controller(StepperOptions(), first=0.016, t_end=10.0, unit=1e-3)
+        c.h = 0.064
+        return c
+
+    steps = _pass_over_gap(controller(), 1.0, 1.15, lambda dt: False, crowded=True, err=1.0)
+    np.testing.assert_allclose(steps, [0.05] * 3, rtol=1e-12)
+    assert len(set(steps)) == 1
+
+    def sixty_four(dt):
+        return dt == pytest.approx(0.064)
+
+    dt, _, _ = controller().propose(1.0, 1.15, cached=sixty_four, crowded=True)
+    assert dt == pytest.approx(0.064)
+    dt, _, _ = controller().propose(1.0, 1.15, cached=lambda dt: False, crowded=False)
+    assert dt == pytest.approx(0.064)
+    dt, _, _ = controller().propose(1.0, 1.3, cached=lambda dt: False, crowded=True)
+    assert dt == pytest.approx(0.064)
+
+    # A rejected step ends the approach; the rest of the gap is adaptive from the shrunk step.
+    c = controller()
+    dt, _, _ = c.propose(1.0, 1.15, cached=lambda dt: False, crowded=True)
+    assert dt == pytest.approx(0.05)
+    assert c.rejects(1.0, dt, 8.0)  # asks for 0.45 x 50 ms: the 16 ms rung
+    dt, _, _ = c.propose(1.0, 1.15, cached=lambda dt: True, crowded=True)
+    assert dt == pytest.approx(0.016)
 
 
 def test_crowded_plan_is_dropped_when_adaptive_steps_cost_less():

@@ -21,6 +21,7 @@ _FAC_MIN = 0.2
 _FAC_MAX = 5.0
 _PROGRESS_SECONDS = 0.25
 _MANTISSA_BITS = 40  # step sizes equal to 40 bits share one factorization
+_APPROACH_STEPS = 4  # crowded cache: a stop this many new-rung steps away is met in equal steps
 # error estimate  K e = E_F h F_n + E_GAMMA M δ_γ + E_END M δ  (see integrate)
 _E_F = -4.0 * _W / 3.0
 _E_GAMMA = (1.0 + 2.0 * _W) / (3.0 * _D)
@@ -88,6 +89,7 @@ class _Interval:
     planned: bool = False
     step: float = 0.0  # the equal step of a plan in force (0: adaptive)
     allowed: float = math.inf  # smallest next step the estimate allowed after a planned step
+    approach: bool = False  # the end of the interval was met in equal steps (see _approach)
 
 
 def ladder_unit(stops: FloatArray, ratio: float) -> float | None:
@@ -205,7 +207,7 @@ class _Controller:
     def _start_interval(self, gap: float, t_stop: float) -> None:
         """Close the record of the last interval between stops and plan the next one."""
         done = self._interval
-        if not done.planned and done.key in self._gaps:
+        if (not done.planned or done.approach) and done.key in self._gaps:
             record = self._gaps[done.key]
             record.adaptive_cost = self._step_cost * done.attempts
             record.adaptive_cost += self._factor_cost * done.misses
@@ -251,7 +253,10 @@ class _Controller:
         self, t: float, t_stop: float, cached: Callable[[float], bool] | None
     ) -> tuple[float, float, bool]:
         gap = t_stop - t
-        if self._interval.step > 0.0:  # an equal-step plan of a recurring gap
+        if self._approach(gap, cached):
+            self._interval.planned = self._interval.approach = True
+            self._interval.step = _quantize(gap / math.ceil(gap / self.h * (1.0 - 1e-9)))
+        if self._interval.step > 0.0:  # an equal-step plan of a recurring gap or an approach
             step = self._interval.step
             landing = step >= gap * (1.0 - 1e-6)
             return step, (t_stop if landing else t + step), landing
@@ -280,6 +285,22 @@ class _Controller:
                 "expected dt_min well above the spacing of floats at t"
             )
         return self._key(step), t_new, landing
+
+    def _approach(self, gap: float, cached: Callable[[float], bool] | None) -> bool:
+        """Return whether to cover the rest of the gap with equal steps of at most ``h``.
+
+        Only with the cache crowded, and only when the step ``h`` is a new matrix anyway and
+        at most ``_APPROACH_STEPS`` of it reach the stop. Then ceil(gap / h) equal steps need
+        that one new matrix, where rungs need it and then one more for the remainder that
+        lands (after a climb to the 65.5 s rung, 56.7 s to the stop). Like the last step of a
+        stretched approach to an output point, no step is longer than the controller's own;
+        a rejection ends the plan (:meth:`rejects`).
+        """
+        if not (self.adaptive and self._crowded and cached is not None):
+            return False
+        if self._interval.step > 0.0 or not self.h < gap * (1.0 - 1e-7):
+            return False
+        return gap <= _APPROACH_STEPS * self.h * (1.0 + 1e-9) and not cached(self._key(self.h))
 
     def _key(self, step: float) -> float:
         """Return the step as the formulas use it and the factorization cache knows it."""
@@ -339,12 +360,13 @@ class _Controller:
         if not (self.adaptive and err > 1.0):
             return False
         shrink = max(_FAC_MIN, _SAFETY * err ** (-1.0 / 3.0))
-        if self._interval.step > 0.0:  # the plan of equal steps fails: adaptive from here on
+        if self._interval.step > 0.0 and not self._interval.approach:
+            # the plan of a recurring gap fails: adaptive from here on, and a longer plan next
             record = self._gaps[self._interval.key]
             wanted = math.ceil((self._interval.stop - t) / max(dt * shrink, self._h_floor))
             record.fewest = max(record.fewest, record.count + 1)
             record.count = max(record.count + 1, wanted)
-            self._interval.step = 0.0
+        self._interval.step = 0.0  # an approach that fails is adaptive from here on too
         if dt > self._h_floor * (1.0 + 1e-9):
             self.h = max(self._h_floor, self._ladder.floor(dt * shrink))
             return True
