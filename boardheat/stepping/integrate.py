@@ -295,7 +295,7 @@ def integrate(
     factorizations. The same step sizes recur from pulse to pulse, so factorizations stay few
     as long as the cache holds the rungs of one ramp plus the landing gaps. Once it has had to
     evict (large boards: the memory budget holds two factorizations at 1 M DOFs), LRU alone
-    would re-factor every rung of every ramp, so the controller changes two things: a gap
+    would re-factor every rung of every ramp, so the controller changes three things: a gap
     between stops met before is covered by equal steps, one matrix per gap kept from period to
     period, when that costs fewer solves than its last adaptive pass, with as few steps as the
     estimate allows (:meth:`~boardheat.stepping.control._Controller._plan_gap`); a growing
@@ -305,8 +305,9 @@ def integrate(
     on the demo board with two cached factorizations: LRU alone 244 steps and 183
     factorizations; equal steps and two-rung growth 321 and 38; plans that follow the estimate
     233 and 41; approaches in equal steps 231 and 38 (peak error against the reference 0.017,
-    0.016, 0.016, 0.014 K). 230 k DOFs with two: 189 -> 42 factorizations, 285 -> 144 s. ``stats.factorizations > stats.distinct_dt`` still shows
-    re-factoring where each period needs more step sizes than the cache holds.
+    0.016, 0.016, 0.014 K). 230 k DOFs with two: 189 -> 42 factorizations, 285 -> 144 s.
+    ``stats.factorizations > stats.distinct_dt`` still shows re-factoring where each period
+    needs more step sizes than the cache holds.
 
     Backward Euler (K = M + h A, K δ = h (F_n + f_{n+1} − f_n)) runs with fixed steps only.
 
