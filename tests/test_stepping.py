@@ -629,6 +629,9 @@ def test_crowded_cache_meets_a_near_stop_in_equal_steps_of_one_new_matrix():
     assert c.rejects(1.0, dt, 8.0)  # asks for 0.45 x 50 ms: the 16 ms rung
     dt, _, _ = c.propose(1.0, 1.15, cached=lambda dt: True, crowded=True)
     assert dt == pytest.approx(0.016)
+    # ... and it sets no plan for the gap: only a failed plan of a recurring gap does that
+    record = c._gaps[c._interval.key]
+    assert (record.count, record.fewest) == (0, 1)
 
 
 def test_crowded_plan_is_dropped_when_adaptive_steps_cost_less():
