@@ -453,6 +453,43 @@ def test_pulse_train_with_a_crowded_cache_stays_exact_and_factors_less():
     assert sol.stats.steps <= 1.5 * unconstrained.stats.steps
 
 
+def test_crowded_plans_shrink_and_the_last_stretch_lands_in_equal_steps_exactly():
+    # Two cached factorizations, 30 pulses (5 ms in 100 ms) and then 57 s without power. The
+    # reference is exact, as in the test above (piecewise-constant power: u(t + s) = u_inf +
+    # expm(J s)(u(t) - u_inf), Moler & Van Loan 2003). Stated bound: half a tolerance unit at
+    # every edge and at the end. Measured: the equal-step plan of the 95 ms gap starts at 5
+    # steps and goes to 4 as the estimate allows, and the last stretch ends in 3 equal steps
+    # of 14.93 s (the 16.4 s rung and a remainder would be two new matrices).
+    n, count, power, width, t_end = 30, 30, 2.0, 0.005, 60.0
+    M, A, g, B = chain(n=n, c_source=1.0)
+    starts = 0.1 + 0.1 * np.arange(count)
+    p, bps = pulse_train(power, starts, np.full(count, width))
+    ode = LinearOde(M, A, g, B, p, bps)
+    J = -np.linalg.solve(M.toarray(), A.toarray())
+    u_on = np.linalg.solve(A.toarray(), B.toarray()[:, 0] * power)
+    u, exact, t = np.zeros(n), {}, 0.0
+    for start in starts:
+        u = sl.expm(J * (start - t)) @ u
+        u = u_on + sl.expm(J * width) @ (u - u_on)
+        t = start + width
+        exact[t] = u
+    exact[t_end] = sl.expm(J * (t_end - t)) @ u
+    opts = options(cache_size=2, rtol=1e-3, atol=1e-3)
+    sol = integrate(ode, np.full(n, T_AMB), t_end, identity_probes(n), opts)
+    index = {t: i for i, t in enumerate(sol.t.tolist())}
+    assert all(t in index for t in exact)
+    reference = np.array(list(exact.values()))
+    unit = opts.atol + opts.rtol * np.max(reference)
+    rows = [index[t] for t in exact]
+    assert np.max(np.abs(sol.probes[rows] - T_AMB - reference)) < 0.5 * unit
+    per_gap = [np.sum((sol.t > s + width) & (sol.t <= s + 0.1 + 1e-12)) for s in starts[:-1]]
+    assert min(per_gap[2:]) < max(per_gap[:2])  # the plan took fewer steps later
+    last = sol.dt[-3:]
+    assert np.unique(last).size == 1
+    assert last[0] < 16.384
+    assert sol.stats.factorizations <= 20, sol.stats
+
+
 def test_adaptive_steps_come_from_the_ladder_except_landings():
     # Steps not shortened to land on a stop are base * ratio**k (rounded to 40 mantissa bits):
     # with a whole ratio the base is the stops' common unit (0.1 s here: stops 0.3, 1.3, 4,
