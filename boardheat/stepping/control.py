@@ -86,7 +86,7 @@ class _Interval:
     attempts: int = 0  # steps tried, rejected ones included
     accepted: int = 0
     misses: int = 0  # steps whose matrix was not factored when proposed
-    planned: bool = False
+    planned: bool = False  # a plan of a recurring gap was taken (see _plan_gap)
     step: float = 0.0  # the equal step of a plan in force (0: adaptive)
     allowed: float = math.inf  # smallest next step the estimate allowed after a planned step
     approach: bool = False  # the end of the interval was met in equal steps (see _approach)
@@ -254,7 +254,7 @@ class _Controller:
     ) -> tuple[float, float, bool]:
         gap = t_stop - t
         if self._approach(gap, cached):
-            self._interval.planned = self._interval.approach = True
+            self._interval.approach = True
             self._interval.step = _quantize(gap / math.ceil(gap / self.h * (1.0 - 1e-9)))
         if self._interval.step > 0.0:  # an equal-step plan of a recurring gap or an approach
             step = self._interval.step
@@ -385,7 +385,7 @@ class _Controller:
         grow = _FAC_MAX if err <= 0.0 else _SAFETY * err ** (-1.0 / 3.0)
         grow = min(_FAC_MAX, max(_FAC_MIN, grow))
         proposal = dt * grow
-        if self._interval.step > 0.0:
+        if self._interval.planned and self._interval.step > 0.0:  # a recurring gap's plan
             self._interval.allowed = min(self._interval.allowed, proposal)
         if clipped and grow >= 1.0:  # a step shortened to land does not shrink the next one
             proposal = max(proposal, self.h)
