@@ -189,6 +189,35 @@ class Schedule:
         x, a, b = self._window(t0, t1)
         return float(0.5 * np.dot(a + b, np.diff(x)))
 
+    def energy_until(self, t: float | FloatArray) -> FloatArray:
+        """Return the integral of P over [0, t] for every t >= 0, joules.
+
+        :meth:`energy` for many end times at once (one pass over the knots, not one window per
+        time): the mean power of each step of a time grid is ``np.diff(energy_until(grid)) /
+        np.diff(grid)``, exact, for pulses shorter than a step as well.
+
+        >>> s = Schedule(np.array([1.0, 3.0]), np.array([0.0, 4.0]), np.array([0.0, 0.0]))
+        >>> s.energy_until(np.array([0.0, 2.0, 3.0, 9.0])).tolist()
+        [0.0, 1.0, 4.0, 4.0]
+        """
+        tt = np.asarray(t, dtype=np.float64)
+        if not (np.isfinite(tt).all() and (tt >= 0.0).all()):
+            raise ValueError("Schedule.energy_until t: expected finite times >= 0 s")
+        k = self.knots
+        # E(t) = integral of P from k[0] to t (negative before k[0], where P = left[0])
+        at_knots = np.concatenate(
+            ([0.0], np.cumsum(0.5 * (self.right[:-1] + self.left[1:]) * self._span))
+        )
+
+        def from_first_knot(x: FloatArray) -> FloatArray:
+            i = np.searchsorted(k, x, side="right") - 1  # k[i] <= x < k[i+1]
+            seg = np.clip(i, 0, k.size - 1)
+            p_x = self.value(x, side="left")  # P just before x: the end of x's own piece
+            inner = at_knots[seg] + 0.5 * (self.right[seg] + p_x) * (x - k[seg])
+            return np.where(i < 0, (x - k[0]) * self.left[0], inner)
+
+        return np.asarray(from_first_knot(tt) - from_first_knot(np.zeros(1))[0], dtype=np.float64)
+
     def mean(self, t0: float, t1: float) -> float:
         """Return the mean power over [t0, t1], watts; needs t1 > t0."""
         if not t1 > t0:

@@ -213,6 +213,40 @@ def test_energy_matches_dense_trapezoid():
     assert abs(s.energy(0.0, 4.0) - ref) <= jumps * h / 2 + 1e-12
 
 
+def test_energy_until_matches_scipy_quad_at_many_times():
+    # a pulse train of 5 ms pulses, a ramp and a step, read on a grid of 7 ms steps that does
+    # not line up with any knot, so most steps hold part of a pulse
+    s = parse(
+        {
+            "steps": [[0.0, 0.25], [0.31, 1.0]],
+            "ramps": [{"start_s": 0.05, "end_s": 0.2, "from_w": 0.0, "to_w": 2.0}],
+            "trains": [
+                {"start_s": 0.01, "period_s": 0.02, "on_s": 0.005, "on_w": 4.0, "count": 20}
+            ],
+        }
+    )
+    grid = np.arange(0.0, 0.5, 0.007)
+    got = s.energy_until(grid)
+    knots = s.knots
+    for t, e in zip(grid, got, strict=True):
+        # scipy.integrate.quad (adaptive Gauss-Kronrod) told where P jumps or kinks: abs 1e-12 J
+        inner = knots[(knots > 0.0) & (knots < t)]
+        ref, _ = integrate.quad(
+            lambda x: float(s.value(x)), 0.0, t, points=inner, limit=400, epsabs=1e-14
+        )
+        assert e == pytest.approx(ref, abs=1e-12)
+    # the same function of one time at a time, before the first knot and after the last
+    for t in (0.0, 0.003, 0.31, 0.7):
+        assert s.energy_until(t) == pytest.approx(s.energy(0.0, t), abs=1e-15)
+    # the train alone: 20 pulses of 4 W x 5 ms = 0.4 J by hand, all before 0.5 s
+    train = parse(
+        {"trains": [{"start_s": 0.01, "period_s": 0.02, "on_s": 0.005, "on_w": 4.0, "count": 20}]}
+    )
+    assert float(train.energy_until(0.5)) == pytest.approx(0.4, rel=1e-13)
+    with pytest.raises(ValueError, match="times >= 0"):
+        s.energy_until(np.array([-1.0]))
+
+
 def test_mean_and_peak():
     s = parse({"pulses": [{"start_s": 1.0, "width_s": 1.0, "power_w": 4.0}], "steps": [[0.0, 1.0]]})
     assert s.mean(0.0, 4.0) == (4.0 + 4.0) / 4.0  # hand: 4 J + 4 J over 4 s
