@@ -20,6 +20,11 @@ whole power sequence (``[run] duration_s``; default board ``demo_boards/buck_4la
   ``--be-budget`` is not started; the dt and cost needed are then extrapolated from the finest
   measured run (error ~ dt, steps counted exactly from the breakpoints, seconds per step and
   per factorization as measured) and the output says so.
+* ``be_constant`` backward Euler with one constant step t = k dt over the whole sequence,
+  landing on no breakpoint: the literal fixed step. Each step is loaded with every part's exact
+  mean power over it (a pulse shorter than dt keeps its energy). dt is halved as for ``be``,
+  with its own ``--be-budget``. Landing on the breakpoints is itself a form of adaptivity, so
+  ``be`` is the stronger baseline; both are reported.
 * ``ivp``        ``scipy.integrate.solve_ivp(method="BDF")`` on y' = M^-1 (g + B p(t) - A y)
   (M is lumped, so M^-1 is a diagonal scaling) with the constant sparse Jacobian -M^-1 A,
   integrated for the rise y = T - T_ambient with the same rtol/atol as ``trbdf2``. solve_ivp
@@ -82,7 +87,7 @@ THREAD_VARIABLES = (
     "MKL_NUM_THREADS",
     "OPENBLAS_NUM_THREADS",
 )
-ALL_CASES = ("trbdf2", "reference", "refcheck", "loose", "be", "ivp", "check")
+ALL_CASES = ("trbdf2", "reference", "refcheck", "loose", "be", "be_constant", "ivp", "check")
 LOOSEN = (3.0, 10.0, 30.0)  # the "loose" TR-BDF2 runs: board rtol and atol times these
 
 Figures = dict[str, Any]
@@ -206,6 +211,66 @@ def case_stepper(spec: Figures, model: Any) -> Figures:
         "backend": st.backend,
         "peak_tj": peak_junction(model, sol.t, sol.probes),
         "stops": stops.tolist(),
+        "complete": True,
+    }
+
+
+def constant_steps(duration: float, dt: float) -> int:
+    """Return the number of equal steps of at most dt that cover [0, duration]."""
+    return max(1, math.ceil(duration / dt * (1.0 - 1e-12)))
+
+
+def case_be_constant(spec: Figures, model: Any) -> Figures:
+    """Backward Euler with one constant step over the whole sequence, landing on no breakpoint.
+
+    The literal fixed step: t_k = k dt. Each step is loaded with the exact mean power of every
+    part over that step (from :meth:`Schedule.energy_until`), the kindest load for a step that
+    straddles a power change: it keeps every pulse's energy, where sampling P at the step's end
+    would drop a pulse shorter than dt or hold it for a whole step. One factorization of
+    M/dt + A serves every step.
+    """
+    from boardheat.run import make_ode
+    from boardheat.stepping.solvers import make_factorization
+
+    board, s = model.board, model.system
+    ode = make_ode(model)
+    duration = board.run.duration
+    n = constant_steps(duration, spec["fixed_dt"])
+    dt = duration / n
+    start = time.perf_counter()
+    t = np.linspace(0.0, duration, n + 1)
+    energy = np.stack([part.schedule.energy_until(t) for part in board.parts], axis=1)
+    mean_power = np.diff(energy, axis=0) / dt  # (n, parts) W
+    m_dt = sp.csr_array(ode.M / dt)
+    began = time.perf_counter()
+    factor = make_factorization(sp.csr_array(m_dt + ode.A), spec["backend"])
+    seconds_factor = time.perf_counter() - began
+    u = np.full(s.n_dofs, board.environment.ambient)
+    probes = np.empty((n + 1, s.P.shape[0]))
+    probes[0] = s.P @ u
+    seconds_solve, last = 0.0, time.perf_counter()
+    for k in range(n):
+        rhs = m_dt @ u + ode.g + ode.B @ mean_power[k]
+        began = time.perf_counter()
+        u = factor.solve(rhs)
+        seconds_solve += time.perf_counter() - began
+        probes[k + 1] = s.P @ u
+        if began - last >= 30.0:
+            last = began
+            where = f"    [{spec['label']}] t = {t[k + 1]:.6g} s, {k + 1} steps"
+            print(where, file=sys.stderr, flush=True)
+    wall = time.perf_counter() - start
+    return {
+        "steps": n,
+        "rejected": 0,
+        "factorizations": 1,
+        "distinct_dt": 1,
+        "solves": n,
+        "seconds_factor": seconds_factor,
+        "seconds_solve": seconds_solve,
+        "seconds_wall": wall,
+        "backend": getattr(factor, "backend", "?"),
+        "peak_tj": peak_junction(model, t, probes),
         "complete": True,
     }
 
@@ -338,6 +403,8 @@ def run_child(spec: Figures) -> Figures:
             rss_start, reset = start_memory_window()
             if spec["case"] == "ivp":
                 out.update(case_ivp(spec, model))
+            elif spec["case"] == "be_constant":
+                out.update(case_be_constant(spec, model))
             else:
                 out.update(case_stepper(spec, model))
     out["rss_start_mib"] = rss_start
@@ -412,20 +479,27 @@ def step_cost(runs: list[Figures]) -> tuple[float, float]:
 
 
 def be_sweep(
-    args: argparse.Namespace, base: Figures, ref: Figures, targets: list[float]
+    args: argparse.Namespace,
+    base: Figures,
+    ref: Figures,
+    targets: list[float],
+    constant: bool = False,
 ) -> tuple[list[Figures], list[Figures]]:
     """Halve the backward Euler step until it meets every target error; extrapolate past budget.
 
+    ``constant`` False: the stepper's fixed mode, whose steps land on every breakpoint (case
+    ``be``); True: one constant step, loaded with each step's mean power (``be_constant``).
     Returns the measured runs and, for each target (K), the first (largest-dt) run that meets
     it, or an extrapolated estimate.
     """
     stops = np.array(ref["stops"])
+    name = "BE constant dt" if constant else "backward Euler dt"
     runs: list[Figures] = []
     spent = 0.0
     dt = args.be_dt0
     note = ""
     while True:
-        steps, _ = fixed_steps(stops, dt)
+        steps = constant_steps(stops[-1], dt) if constant else fixed_steps(stops, dt)[0]
         if runs:
             fixed, per_step = step_cost(runs)
             predicted = fixed + steps * per_step
@@ -435,7 +509,8 @@ def be_sweep(
                     f"what is left of --be-budget {args.be_budget:g} s"
                 )
                 break
-        spec = {**base, "case": "be", "label": f"backward Euler dt {dt:.4g}", "fixed_dt": dt}
+        case = "be_constant" if constant else "be"
+        spec = {**base, "case": case, "label": f"{name} {dt:.4g}", "fixed_dt": dt}
         # rtol/atol are not used by fixed-step backward Euler (it has no error estimate)
         r = launch({**spec, "method": "backward_euler", "rtol": 0.0, "atol": 1.0}, args)
         r["dt"] = dt
@@ -452,14 +527,16 @@ def be_sweep(
     for target in targets:
         hit = next((r for r in runs if r["error"] <= target), None)
         if hit is None:
-            out.append(extrapolate_be(runs, stops, note, target))
+            out.append(extrapolate_be(runs, stops, note, target, constant))
         else:
             how = f"measured: largest dt of the sweep within {target:.3g} K is {hit['dt']:.4g} s"
             out.append({**hit, "target": target, "extrapolated": False, "how": how})
     return runs, out
 
 
-def extrapolate_be(runs: list[Figures], stops: np.ndarray, note: str, target: float) -> Figures:
+def extrapolate_be(
+    runs: list[Figures], stops: np.ndarray, note: str, target: float, constant: bool = False
+) -> Figures:
     """Estimate the fixed dt and cost at which backward Euler's peak Tj error reaches target.
 
     Backward Euler is first order, and an interval between breakpoints that is shorter than dt
@@ -467,6 +544,10 @@ def extrapolate_be(runs: list[Figures], stops: np.ndarray, note: str, target: fl
     in proportion to dt: error(dt') ~ error(dt) * dt' / dt from the finest measured run gives
     the largest dt that could meet the target, i.e. a lower bound on the steps. The slope
     fitted to the last measured runs is reported beside it.
+
+    With a constant step (``constant``) the same rule is an estimate only: while dt is longer
+    than a pulse, halving dt can cut the error by more than half (the pulse's energy is spread
+    over fewer, shorter steps), so the steps are then not a lower bound.
     """
     usable = [r for r in runs if r["error"] > 0.0][-3:]
     finest = runs[-1]
@@ -476,21 +557,29 @@ def extrapolate_be(runs: list[Figures], stops: np.ndarray, note: str, target: fl
         errs = np.log([r["error"] for r in usable])
         order = float(np.polyfit(dts, errs, 1)[0])
     dt_needed = finest["dt"] * target / finest["error"]
-    steps, sizes = fixed_steps(stops, dt_needed)
+    if constant:
+        steps, sizes = constant_steps(stops[-1], dt_needed), 1
+    else:
+        steps, sizes = fixed_steps(stops, dt_needed)
     fixed, per_step = step_cost(runs)
     per_factor = finest["seconds_factor"] / max(1, finest["factorizations"])
     solve_per = finest["seconds_solve"] / max(1, finest["solves"])
     how = (
         f"EXTRAPOLATED ({note}): error ~ dt (first order; fitted slope of the last "
         f"{len(usable)} runs {order:.2f}) from {finest['error']:.4f} K at dt = "
-        f"{finest['dt']:.4g} s gives dt <= {dt_needed:.3g} s for {target:.3g} K; steps counted "
-        f"exactly from the breakpoints ({steps}, at least); time = {fixed:.2f} s + steps x "
+        f"{finest['dt']:.4g} s gives dt <= {dt_needed:.3g} s for {target:.3g} K; "
+        + (
+            f"{steps} constant steps (an estimate, not a bound); "
+            if constant
+            else f"steps counted exactly from the breakpoints ({steps}, at least); "
+        )
+        + f"time = {fixed:.2f} s + steps x "
         f"{per_step * 1e3:.2f} ms (line fitted to the measured runs) + {sizes} factorizations "
         f"x {per_factor:.2f} s (as measured at dt = {finest['dt']:.4g} s); memory as measured "
         "there"
     )
     return {
-        "label": "backward Euler (extrap.)",
+        "label": "BE constant (extrap.)" if constant else "backward Euler (extrap.)",
         "target": target,
         "dt": dt_needed,
         "steps": steps,
@@ -579,11 +668,12 @@ def report(fig: Figures) -> None:
             )
     for r in fig.get("tr_sweep", []):
         print(table_row(r["label"], r, r["error"]))
-    for r in fig.get("be_sweep", []):
-        print(table_row(r["label"], r, r["error"]))
-    for be in fig.get("be_equal", []):
-        if be["extrapolated"]:
-            print(table_row(be["label"], be, be["error"], approx=True))
+    for key in ("be", "be_constant"):
+        for r in fig.get(f"{key}_sweep", []):
+            print(table_row(r["label"], r, r["error"]))
+        for be in fig.get(f"{key}_equal", []):
+            if be["extrapolated"]:
+                print(table_row(be["label"], be, be["error"], approx=True))
     if "ivp" in cases:
         r = cases["ivp"]
         label = "solve_ivp BDF" + ("" if r["complete"] else " (stopped)")
@@ -606,6 +696,14 @@ def report(fig: Figures) -> None:
         )
     for be in fig.get("be_equal", []):
         print(f"backward Euler within {be['target']:.4g} K: {be['how']}")
+    for be in fig.get("be_constant_equal", []):
+        print(f"backward Euler, constant dt, within {be['target']:.4g} K: {be['how']}")
+    if fig.get("be_equal") or fig.get("be_constant_equal"):
+        print(
+            "backward Euler: 'backward Euler dt' lands on every breakpoint (each gap between "
+            "power changes in equal steps <= dt, P at the step's end); 'BE constant dt' steps "
+            "t = k dt regardless of them, each step loaded with the parts' mean power over it"
+        )
     if "ivp" in cases:
         r = cases["ivp"]
         print(
@@ -629,7 +727,7 @@ def report(fig: Figures) -> None:
         shown = "n/a" if value is None else f"{value:.2f}"
         sign = ">=" if above else "<="
         met = verdict(value, target, above)
-        print(f"  {name:44} {shown:>9}   target {sign} {target:g}: {met}{note}")
+        print(f"  {name:52} {shown:>9}   target {sign} {target:g}: {met}{note}")
 
 
 def ratios(fig: Figures) -> dict[str, tuple[float | None, float, bool, str]]:
@@ -640,8 +738,11 @@ def ratios(fig: Figures) -> dict[str, tuple[float | None, float, bool, str]]:
         busy = tr["seconds_factor"] + tr["seconds_solve"]
         out["stepper overhead wall/(factor+solve)"] = (tr["seconds_wall"] / busy, 1.3, False, "")
     equal = equal_accuracy_trbdf2(fig)
-    for be in fig.get("be_equal", []) if tr is not None else []:
-        tag = " (BE extrapolated, at least)" if be["extrapolated"] else ""
+    landing = [(be, "BE") for be in fig.get("be_equal", [])]
+    constant = [(be, "BE const dt") for be in fig.get("be_constant_equal", [])]
+    for be, who in [*landing, *constant] if tr is not None else []:
+        bound = "estimate" if who != "BE" else "at least"
+        tag = f" (BE extrapolated, {bound})" if be["extrapolated"] else ""
         # at the issue's 0.1 K both methods run at their cheapest setting that meets it; at a
         # tighter target (TR-BDF2's own accuracy) TR-BDF2 runs at the board's tolerances
         if be["target"] >= fig.get("be_target", EQUAL_ACCURACY) and equal is not None:
@@ -650,9 +751,9 @@ def ratios(fig: Figures) -> dict[str, tuple[float | None, float, bool, str]]:
             mine, at = tr, f"BE within {be['target']:.2g} K, TR-BDF2 at board tol"
         else:
             mine, at = tr, f"both within {be['target']:.2g} K"
-        out[f"steps BE / TR-BDF2, {at}"] = (be["steps"] / mine["steps"], 20.0, True, tag)
+        out[f"steps {who} / TR-BDF2, {at}"] = (be["steps"] / mine["steps"], 20.0, True, tag)
         time_ratio = be["seconds_wall"] / mine["seconds_wall"]
-        out[f"time BE / TR-BDF2, {at}"] = (time_ratio, 10.0, True, tag)
+        out[f"time {who} / TR-BDF2, {at}"] = (time_ratio, 10.0, True, tag)
     ivp = cases.get("ivp")
     if tr is not None and ivp is not None:
         tag = "" if ivp["complete"] else " (lower bound: stopped by budget)"
@@ -797,7 +898,7 @@ def main(argv: list[str] | None = None) -> None:
         unknown = wanted - set(ALL_CASES)
         if unknown:
             raise SystemExit(f"--cases: unknown {sorted(unknown)}; expected some of {ALL_CASES}")
-    if wanted & {"be", "refcheck", "loose"}:
+    if wanted & {"be", "be_constant", "refcheck", "loose"}:
         wanted.add("reference")
     fig["backend"] = cases["trbdf2"]["backend"]
     if "reference" in wanted:
@@ -817,13 +918,16 @@ def main(argv: list[str] | None = None) -> None:
             error = peak_error(r, cases.get("reference"))
             r.update(rtol=rtol, atol=atol, error=error, error_vs_reference=error)
             fig["tr_sweep"].append(r)
-    if "be" in wanted:
+    if wanted & {"be", "be_constant"}:
         # the issue's criterion, and (when tighter) the accuracy TR-BDF2 actually reached
         targets = [args.be_target]
         tr_error = peak_error(cases["trbdf2"], cases["reference"])
         if tr_error is not None and MIN_TARGET <= tr_error < args.be_target:
             targets.append(tr_error)
-        fig["be_sweep"], fig["be_equal"] = be_sweep(args, base, cases["reference"], targets)
+        for key, constant in (("be", False), ("be_constant", True)):
+            if key in wanted:
+                runs, equal = be_sweep(args, base, cases["reference"], targets, constant)
+                fig[f"{key}_sweep"], fig[f"{key}_equal"] = runs, equal
     if "ivp" in wanted:
         spec = {**base, "case": "ivp", "label": "solve_ivp BDF", "budget": args.ivp_budget}
         cases["ivp"] = launch({**spec, "rtol": run.rtol, "atol": run.atol}, args)

@@ -33,7 +33,7 @@ def test_every_case_prints_its_row_and_the_ratios(tmp_path: Path) -> None:
     text = run_script(
         "--in-process",
         "--cases",
-        "trbdf2,reference,loose,be,ivp",
+        "trbdf2,reference,loose,be,be_constant,ivp",
         "--be-dt0",
         "0.005",
         "--be-budget",
@@ -45,9 +45,11 @@ def test_every_case_prints_its_row_and_the_ratios(tmp_path: Path) -> None:
     )
     for key in ("steps", "factor", "solves", "wall s", "peak MiB", "|dTj| K"):
         assert key in text, f"column {key!r} missing from:\n{text}"
-    for row in ("reference rtol 1e-06", "TR-BDF2 rtol", "backward Euler dt 0.005", "solve_ivp"):
+    rows = ("reference rtol 1e-06", "TR-BDF2 rtol", "backward Euler dt 0.005", "BE constant dt")
+    for row in (*rows, "solve_ivp"):
         assert row in text, f"row {row!r} missing from:\n{text}"
     assert "steps BE / TR-BDF2, both within 0.1 K" in text
+    assert "steps BE const dt / TR-BDF2, both within 0.1 K" in text
     assert "TR-BDF2 rtol 0.03" in text  # the loosest of the "loose" runs (board rtol 1e-3 x 30)
     assert "time solve_ivp / TR-BDF2" in text
 
@@ -61,6 +63,13 @@ def test_every_case_prints_its_row_and_the_ratios(tmp_path: Path) -> None:
     be = figures["be_equal"][0]
     assert be["target"] == pytest.approx(0.1)
     assert be["steps"] >= figures["be_sweep"][0]["steps"]
+    # the constant step: 0.02 s in equal steps of dt = 5 ms, 2.5 ms, ... and one factorization
+    const = figures["be_constant_sweep"]
+    assert [r["steps"] for r in const] == [4 * 2**i for i in range(len(const))]
+    assert all(r["factorizations"] == 1 and r["solves"] == r["steps"] for r in const)
+    # on this sequence its error does not rise as dt halves (measured 0.50, 0.50, 0.19, 0.03 K)
+    errors = [r["error"] for r in const]
+    assert errors == sorted(errors, reverse=True)
     # TR-BDF2 at equal accuracy: the quickest run within 0.1 K, never a run outside it
     loose = figures["tr_sweep"]
     assert [r["rtol"] for r in loose] == pytest.approx([3e-3, 1e-2, 3e-2])
