@@ -237,10 +237,11 @@ def make_factorization(matrix: Any, backend: str = "auto") -> Factorization:
     matrix : (n, n) sparse, any unit
         The matrix K to factor.
     backend : {"auto", "splu", "cholmod", "pardiso"}
-        ``"auto"`` picks CHOLMOD if scikit-sparse imports, else PARDISO if the MKL runtime loads
-        and the matrix has at least ``PARDISO_MIN_DOFS`` rows, else scipy's SuperLU with a
-        symmetric minimum-degree ordering. A dropped PARDISO
-        factorization frees MKL's memory at once.
+        ``"auto"`` picks PARDISO if the MKL runtime loads (but SuperLU below
+        ``PARDISO_MIN_DOFS`` rows, where PARDISO's set-up dominates), else CHOLMOD if
+        scikit-sparse imports, else scipy's SuperLU with a symmetric minimum-degree ordering:
+        the order of :func:`available_backends`. A dropped PARDISO factorization frees MKL's
+        memory at once.
 
     Returns
     -------
