@@ -671,6 +671,34 @@ def test_crowded_cache_meets_a_near_stop_in_equal_steps_of_one_new_matrix():
     assert (record.count, record.fewest) == (0, 1)
 
 
+def test_crowded_approach_takes_a_cached_step_that_divides_the_gap():
+    # Cost model of the controller (TR-BDF2: 3 solves a step; a factorization counted as
+    # factor_cost = 20 solves here). h = 4 ms, not factored, 10 ms to the stop: the approach's
+    # own plan is 3 steps of 3.33 ms, a new matrix, 9 + 20 = 29 solves. A cached 2 ms divides
+    # the gap: 5 steps, 15 solves, so it is taken. A cached 1 ms (10 steps, 30 solves) is not.
+    from boardheat.stepping.control import _Controller
+
+    def controller():
+        c = _Controller(StepperOptions(), first=0.004, t_end=10.0, unit=1e-3, factor_cost=20.0)
+        c.h = 0.004
+        return c
+
+    def holding(*steps):
+        return lambda dt: any(dt == pytest.approx(s, rel=1e-9) for s in steps)
+
+    steps = _pass_over_gap(controller(), 0.015, 0.025, holding(0.002), crowded=True, err=1.0)
+    np.testing.assert_allclose(steps, [0.002] * 5, rtol=1e-9)
+    steps = _pass_over_gap(controller(), 0.015, 0.025, holding(0.001), crowded=True, err=1.0)
+    np.testing.assert_allclose(steps, [0.01 / 3] * 3, rtol=1e-9)
+    # a cached step that does not divide the gap (3 ms) is of no use; nor is one longer than h
+    steps = _pass_over_gap(controller(), 0.015, 0.025, holding(0.003, 0.005), crowded=True)
+    np.testing.assert_allclose(steps, [0.01 / 3] * 3, rtol=1e-9)
+    # the approach's own step cached: it is taken, the fewest steps
+    own = holding(0.01 / 3, 0.002)
+    steps = _pass_over_gap(controller(), 0.015, 0.025, own, crowded=True, err=1.0)
+    np.testing.assert_allclose(steps, [0.01 / 3] * 3, rtol=1e-9)
+
+
 def test_crowded_plan_is_dropped_when_adaptive_steps_cost_less():
     # With every matrix cached, the adaptive pass over the gap cost 4 steps = 12 solves, and
     # 4 equal steps would cost the same: no plan (ties go to the adaptive pass).
