@@ -1150,3 +1150,36 @@ def test_factorization_cache_respects_its_memory_budget():
     assert cache.evictions_for_memory == 2
     cache.get(0.4)
     assert cache.counters.factorizations == 4
+
+
+@pytest.mark.parametrize("backend", ["splu", "pardiso"])
+def test_a_cache_that_holds_few_factorizations_is_crowded_from_the_start(backend):
+    # CROWDED_SLOTS = 3: a cache that holds at most three, by its count limit or by its
+    # memory budget, is crowded before any eviction; one that holds more only after one.
+    # PARDISO knows the size of a factorization from its analysis, before the first one;
+    # SuperLU only after it.
+    from boardheat.stepping.solvers import CROWDED_SLOTS, _FactorCache
+
+    if backend not in available_backends():
+        pytest.skip(f"{backend} is not installed")
+    assert CROWDED_SLOTS == 3
+    n = 6000  # above PARDISO_MIN_DOFS
+    K = sp.diags_array(
+        [np.full(n - 1, -1.0), np.full(n, 2.5), np.full(n - 1, -1.0)], offsets=[-1, 0, 1]
+    ).tocsr()
+    M = sp.eye_array(n, format="csr")
+    assert _FactorCache(M, K, 0.5, backend, size=3, budget=2**40).crowded
+    roomy = _FactorCache(M, K, 0.5, backend, size=40, budget=2**40)
+    assert not roomy.crowded
+    roomy.get(0.1)
+    one = roomy._bytes[0.1]
+    assert not roomy.crowded
+    tight = _FactorCache(M, K, 0.5, backend, size=40, budget=int(3.5 * one))
+    assert tight.crowded is (backend == "pardiso")  # three fit: known at once with PARDISO
+    tight.get(0.1)
+    assert tight.crowded
+    four = _FactorCache(M, K, 0.5, backend, size=40, budget=int(4.5 * one))
+    for k, dt in enumerate((0.1, 0.2, 0.4, 0.8, 1.6)):
+        four.get(dt)
+        assert four.crowded is (k == 4)  # crowded once the fifth has freed the first
+    assert four.evictions == 1

@@ -383,7 +383,7 @@ def integrate(
     i_stop = 0
     while i_stop < stops.size:
         dt, t_new, landing = control.propose(
-            t, float(stops[i_stop]), factors.cached, crowded=factors.evictions > 0
+            t, float(stops[i_stop]), factors.cached, crowded=factors.crowded
         )
         attempts += 1
         if attempts > opts.max_steps:

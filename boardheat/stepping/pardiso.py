@@ -220,6 +220,25 @@ class PardisoPattern:
                 "matrix; expected a symmetric positive definite matrix"
             )
 
+    def analyse(self, values: FloatArray) -> None:
+        """Order and analyse the pattern (once): sets ``factor_bytes`` before any factorization.
+
+        ``values`` are upper-triangle values on the pattern (CSR order), finite.
+        """
+        if self._analysed:
+            return
+        empty = np.zeros(0)
+        self._call(11, 1, np.ascontiguousarray(values, dtype=np.float64), empty, empty)
+        self._analysed = True
+        self.analyses += 1
+        self.analysis_bytes = 1024 * int(self._iparm[14])  # peak of the analysis, kB
+        # iparm[17]: entries PARDISO stores for the factor L (its supernodes as dense
+        # blocks), fixed by the analysis, so every factorization of the handle holds
+        # 8 bytes per entry. Not iparm[16]: that one adds up the handle's factorizations
+        # (measured on the 52 k DOF demo: 79, 154, 230 MiB for one, two, three live ones,
+        # while the resident set grew by 73 MiB = 8 B x 9.6 M entries of L each time).
+        self.factor_bytes = 8 * int(self._iparm[17])
+
     def factor(self, values: FloatArray) -> PardisoFactor:
         """Factor the matrix with this pattern and these upper-triangle values (CSR order)."""
         data = np.ascontiguousarray(values, dtype=np.float64)
@@ -233,17 +252,7 @@ class PardisoPattern:
                 "factorization to be released first"
             )
         empty = np.zeros(0)
-        if not self._analysed:
-            self._call(11, 1, data, empty, empty)
-            self._analysed = True
-            self.analyses += 1
-            self.analysis_bytes = 1024 * int(self._iparm[14])  # peak of the analysis, kB
-            # iparm[17]: entries PARDISO stores for the factor L (its supernodes as dense
-            # blocks), fixed by the analysis, so every factorization of the handle holds
-            # 8 bytes per entry. Not iparm[16]: that one adds up the handle's factorizations
-            # (measured on the 52 k DOF demo: 79, 154, 230 MiB for one, two, three live ones,
-            # while the resident set grew by 73 MiB = 8 B x 9.6 M entries of L each time).
-            self.factor_bytes = 8 * int(self._iparm[17])
+        self.analyse(data)
         mnum = self._free.pop()
         try:
             self._call(22, mnum, data, empty, empty)

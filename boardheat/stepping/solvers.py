@@ -212,6 +212,9 @@ def available_backends() -> list[str]:
     return [*names, "splu"]
 
 
+#: a factorization cache whose memory budget holds at most this many is crowded from the start
+CROWDED_SLOTS = 3
+
 #: below this many unknowns SuperLU beats PARDISO (whose per-factorization set-up dominates)
 PARDISO_MIN_DOFS = 5000
 
@@ -384,6 +387,12 @@ class _PardisoFamily:
     def factor(self, s: float) -> Factorization:
         return self._pattern.factor(self._m + s * self._a)
 
+    def prepare(self) -> int:
+        """Run the analysis now; return the bytes one factorization will hold."""
+        values = np.asarray(self._m + self._a, dtype=np.float64)  # the analysis reads its pattern
+        self._pattern.analyse(values)
+        return self._pattern.factor_bytes + 8 * values.size
+
     @property
     def analyses(self) -> int:
         return self._pattern.analyses
@@ -420,6 +429,10 @@ class _CholmodFamily:
             self._nbytes = after - before
         return _CholmodFactorization(K, numeric, self._nbytes)
 
+    def prepare(self) -> int:
+        """Return 0: the size of L is known only after the first factorization."""
+        return 0
+
 
 class _FactorCache:
     """LRU cache of factorizations of M + c*dt*A keyed by the (quantized) step dt.
@@ -430,8 +443,9 @@ class _FactorCache:
     one analysis and so has exactly the same size). The newest is always kept, even alone
     over budget. With PARDISO one factorization holds 0.42 GiB at 228 k DOFs and 2.5 GiB at
     1.02 M DOFs (the board meshes of ``scripts/bench_stepper.py --size 8`` and ``--size 24``).
-    ``evictions`` counts the factorizations freed to make room; once it is positive, the step
-    controller plans for a crowded cache (see ``_Controller.propose``).
+    ``evictions`` counts the factorizations freed to make room; once it is positive, or when
+    the cache holds few (:attr:`crowded`), the step controller plans for a crowded cache (see
+    ``_Controller.propose``).
     """
 
     def __init__(
@@ -456,6 +470,28 @@ class _FactorCache:
             self._family = _PardisoFamily(M, A, size)
         elif backend == "cholmod":
             self._family = _CholmodFamily(M, A)
+        if self._family is not None:
+            start = time.perf_counter()
+            self._expected_bytes = self._family.prepare()  # counted as factorization time
+            self.counters.seconds_factor += time.perf_counter() - start
+
+    @property
+    def crowded(self) -> bool:
+        """True once a factorization was freed to make room, or when the cache holds few.
+
+        The step controller plans for a crowded cache (see ``_Controller.propose``). A cache
+        that holds at most ``CROWDED_SLOTS`` factorizations (by its count limit or by its
+        memory budget) is crowded from the start, before any eviction: a start-up sequence
+        alone takes more step sizes (the demo board's first 30 ms take six). The memory of one
+        factorization is known before the first with PARDISO (from its analysis), after it
+        with the other back ends.
+        """
+        if self.evictions > 0:
+            return True
+        slots = self._size
+        if self._expected_bytes > 0:
+            slots = min(slots, self._budget // self._expected_bytes)
+        return slots <= CROWDED_SLOTS
 
     def cached(self, dt: float) -> bool:
         """Return whether the factorization of step dt is held (without touching its age)."""
