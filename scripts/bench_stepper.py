@@ -48,6 +48,8 @@ one holds 2.5 GiB at 1 M DOFs with PARDISO: 334 M stored entries of L).
 Usage::
 
     python scripts/bench_stepper.py --threads 1 --json demo.json   # demo board, every case
+    python scripts/bench_stepper.py --threads 1 --cases trbdf2,reference,be_constant \
+        --be-dt0 0.00390625 --be-budget 1500     # one constant dt, measured down to 1.95 ms
     python scripts/bench_stepper.py --size 8                       # ~230 k DOFs, TR-BDF2 only
     python scripts/bench_stepper.py --size 24 --duration 0.1 --cache-size 3   # ~1 M DOFs
     python scripts/bench_stepper.py --size 24 --cache-gib 8.5    # 1 M DOFs, three factorizations
