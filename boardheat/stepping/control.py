@@ -292,7 +292,8 @@ class _Controller:
         Only with the cache crowded, and only when the step ``h`` is a new matrix anyway and
         at most ``_APPROACH_STEPS`` of it reach the stop. Then ceil(gap / h) equal steps need
         that one new matrix, where rungs need it and then one more for the remainder that
-        lands (after a climb to the 65.5 s rung, 56.7 s to the stop). Like the last step of a
+        lands (after a climb to the 65.5 s rung, 56.7 s to the stop), or none when a step
+        already factored divides the gap (:meth:`_approach_step`). Like the last step of a
         stretched approach to an output point, no step is longer than the controller's own;
         a rejection ends the plan (:meth:`rejects`).
         """

@@ -212,7 +212,7 @@ def available_backends() -> list[str]:
     return [*names, "splu"]
 
 
-#: a factorization cache whose memory budget holds at most this many is crowded from the start
+#: a factorization cache that holds at most this many (by count or memory) is crowded at once
 CROWDED_SLOTS = 3
 
 #: below this many unknowns SuperLU beats PARDISO (whose per-factorization set-up dominates)
