@@ -217,11 +217,6 @@ def case_stepper(spec: Figures, model: Any) -> Figures:
     }
 
 
-def constant_steps(duration: float, dt: float) -> int:
-    """Return the number of equal steps of at most dt that cover [0, duration]."""
-    return max(1, math.ceil(duration / dt * (1.0 - 1e-12)))
-
-
 def case_be_constant(spec: Figures, model: Any) -> Figures:
     """Backward Euler with one constant step over the whole sequence, landing on no breakpoint.
 
@@ -237,7 +232,7 @@ def case_be_constant(spec: Figures, model: Any) -> Figures:
     board, s = model.board, model.system
     ode = make_ode(model)
     duration = board.run.duration
-    n = constant_steps(duration, spec["fixed_dt"])
+    n, _ = fixed_steps(np.array([duration]), spec["fixed_dt"])  # no stop before the end
     dt = duration / n
     start = time.perf_counter()
     t = np.linspace(0.0, duration, n + 1)
@@ -457,7 +452,7 @@ def fixed_steps(stops: np.ndarray, dt: float) -> tuple[int, int]:
     """Return (steps, distinct step sizes) of fixed-step stepping that lands on every stop.
 
     Mirrors the stepper's fixed mode: each gap between stops is cut into ceil(gap / dt) equal
-    steps.
+    steps. With the end of the run as the only stop: one constant step for the whole run.
     """
     gaps = np.diff(np.concatenate([[0.0], stops]))
     counts = np.maximum(1, np.ceil(gaps / dt * (1.0 - 1e-12)))
@@ -501,7 +496,7 @@ def be_sweep(
     dt = args.be_dt0
     note = ""
     while True:
-        steps = constant_steps(stops[-1], dt) if constant else fixed_steps(stops, dt)[0]
+        steps, _ = fixed_steps(stops[-1:] if constant else stops, dt)
         if runs:
             fixed, per_step = step_cost(runs)
             predicted = fixed + steps * per_step
@@ -559,10 +554,7 @@ def extrapolate_be(
         errs = np.log([r["error"] for r in usable])
         order = float(np.polyfit(dts, errs, 1)[0])
     dt_needed = finest["dt"] * target / finest["error"]
-    if constant:
-        steps, sizes = constant_steps(stops[-1], dt_needed), 1
-    else:
-        steps, sizes = fixed_steps(stops, dt_needed)
+    steps, sizes = fixed_steps(stops[-1:] if constant else stops, dt_needed)
     fixed, per_step = step_cost(runs)
     per_factor = finest["seconds_factor"] / max(1, finest["factorizations"])
     solve_per = finest["seconds_solve"] / max(1, finest["solves"])

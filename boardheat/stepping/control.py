@@ -253,7 +253,7 @@ class _Controller:
         self, t: float, t_stop: float, cached: Callable[[float], bool] | None
     ) -> tuple[float, float, bool]:
         gap = t_stop - t
-        if self._approach(gap, cached):
+        if cached is not None and self._approach(gap, cached):
             self._interval.approach = True
             self._interval.step = self._approach_step(gap, cached)
         if self._interval.step > 0.0:  # an equal-step plan of a recurring gap or an approach
@@ -286,7 +286,7 @@ class _Controller:
             )
         return self._key(step), t_new, landing
 
-    def _approach(self, gap: float, cached: Callable[[float], bool] | None) -> bool:
+    def _approach(self, gap: float, cached: Callable[[float], bool]) -> bool:
         """Return whether to cover the rest of the gap with equal steps of at most ``h``.
 
         Only with the cache crowded, and only when the step ``h`` is a new matrix anyway and
@@ -297,13 +297,13 @@ class _Controller:
         stretched approach to an output point, no step is longer than the controller's own;
         a rejection ends the plan (:meth:`rejects`).
         """
-        if not (self.adaptive and self._crowded and cached is not None):
+        if not (self.adaptive and self._crowded):
             return False
         if self._interval.step > 0.0 or not self.h < gap * (1.0 - 1e-7):
             return False
         return gap <= _APPROACH_STEPS * self.h * (1.0 + 1e-9) and not cached(self._key(self.h))
 
-    def _approach_step(self, gap: float, cached: Callable[[float], bool] | None) -> float:
+    def _approach_step(self, gap: float, cached: Callable[[float], bool]) -> float:
         """Return the equal step of an approach: gap / n with n >= ceil(gap / h).
 
         n = ceil(gap / h) takes the fewest steps. When its step is not factored, a larger n
@@ -317,7 +317,7 @@ class _Controller:
         """
         fewest = math.ceil(gap / self.h * (1.0 - 1e-9))
         own = self._key(gap / fewest)
-        if cached is None or cached(own):
+        if cached(own):
             return own
         new_matrix = self._step_cost * fewest + self._factor_cost
         n = fewest + 1

@@ -301,13 +301,15 @@ def integrate(
     estimate allows (:meth:`~boardheat.stepping.control._Controller._plan_gap`); a growing
     step moves two rungs at a time (ratio² ladder), halving the matrices of a climb; and a stop
     at most four new-rung steps away is met in equal steps, one new matrix instead of the rung
-    and the remainder (:meth:`~boardheat.stepping.control._Controller._approach`). Measured
-    on the demo board with two cached factorizations: LRU alone 244 steps and 183
-    factorizations; equal steps and two-rung growth 321 and 38; plans that follow the estimate
-    233 and 41; approaches in equal steps 231 and 38 (peak error against the reference 0.017,
-    0.016, 0.016, 0.014 K). 230 k DOFs with two: 189 -> 42 factorizations, 285 -> 144 s.
-    ``stats.factorizations > stats.distinct_dt`` still shows re-factoring where each period
-    needs more step sizes than the cache holds.
+    and the remainder, or in a step already factored that divides the gap
+    (:meth:`~boardheat.stepping.control._Controller._approach`). A cache that holds at most
+    ``CROWDED_SLOTS`` factorizations is crowded from the start. Measured on the demo board with
+    two cached factorizations: LRU alone 244 steps and 183 factorizations; equal steps and
+    two-rung growth 321 and 38; plans that follow the estimate 233 and 41; approaches in equal
+    steps 231 and 38; with cached divisors and crowded from the start 234 and 34 (peak error
+    against the reference 0.017, 0.016, 0.016, 0.014, 0.014 K). 230 k DOFs with two: 189 ->
+    42 factorizations, 285 -> 144 s. ``stats.factorizations > stats.distinct_dt`` still shows
+    re-factoring where each period needs more step sizes than the cache holds.
 
     Backward Euler (K = M + h A, K δ = h (F_n + f_{n+1} − f_n)) runs with fixed steps only.
 
