@@ -316,6 +316,7 @@ def _solve(
             seconds_solve=st.seconds_solve,
             seconds_stepping=st.seconds_total,
             backend=st.backend,
+            precision=st.precision,
         )
         traces = _traces(model, sol.t, sol.probes)
         excess = traces.tj.max(axis=0) - np.array([p.tj_max for p in board.parts])

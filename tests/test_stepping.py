@@ -1023,6 +1023,183 @@ def test_pardiso_reports_a_matrix_that_is_not_positive_definite():
     np.testing.assert_allclose(pattern.factor(np.full(3, 4.0)).solve(np.ones(3)), 0.25)
 
 
+def _layered_board_matrices(n_dofs):
+    """(K, M) of the layered board of scripts/bench_solvers.py: W/K and J/K, CSR."""
+    spec = importlib.util.spec_from_file_location(
+        "bench_solvers", Path(__file__).parents[1] / "scripts" / "bench_solvers.py"
+    )
+    bench = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(bench)
+    _, K, M = bench.layered_board(n_dofs)
+    return sp.csr_array(K), sp.csr_array(M)
+
+
+def _needs_pardiso():
+    if "pardiso" not in available_backends():
+        pytest.skip("the MKL runtime is not installed")
+
+
+def test_single_precision_factors_hold_half_the_memory_and_refined_solves_are_exact():
+    # Mixed-precision iterative refinement (Moler, J. ACM 14 (1967) 316-321; Higham, Accuracy
+    # and Stability of Numerical Algorithms, 2nd ed., 2002, Ch. 12): factors in single
+    # precision (unit roundoff 6e-8), residuals in double; each step shrinks the error by
+    # about kappa(K) * 6e-8 until it reaches double-precision level. Reference:
+    # scipy.sparse.linalg.spsolve. On a layered board (copper and FR-4) from a 1 ms step to
+    # a 1000 s one: one single-precision solve alone is off by more than 1e-9 (relative, max
+    # norm), so the test sees whether refinement happens; refined, within 1e-7 (the stopping
+    # rule aims at 1e-8 and its estimate of the error is measured to be up to 3x low).
+    from boardheat.stepping.pardiso import PardisoPattern
+    from boardheat.stepping.solvers import _PardisoFamily, _Refined
+
+    _needs_pardiso()
+    K, M = _layered_board_matrices(20_000)
+    family = _PardisoFamily(M, K, maxfct=2, single=True)
+    rhs = np.random.default_rng(SEED + 13).normal(size=K.shape[0])
+    for s in (1e-3, 1.0, 60.0, 1000.0):
+        factor = family.factor(s)
+        assert isinstance(factor, _Refined)
+        exact = spsolve((M + s * K).tocsc(), rhs)
+        scale = np.abs(exact).max()
+        rough = factor._factor.solve(rhs)
+        assert np.abs(rough - exact).max() > 1e-9 * scale
+        refined = factor.solve(rhs)
+        assert np.abs(refined - exact).max() <= 1e-7 * scale
+        assert not factor.double
+        assert 1 <= factor.refinements <= 2
+        factor.release()
+    # Bytes: the same analysis stores the same entries of L, 4 bytes each instead of 8
+    upper = sp.triu(M + K, format="csr")
+    upper.sort_indices()
+    single = PardisoPattern(upper, maxfct=1, single=True)
+    double = PardisoPattern(upper, maxfct=1)
+    single.analyse(upper.data)
+    double.analyse(upper.data)
+    assert 2 * single.factor_bytes == double.factor_bytes > 0
+
+
+def test_a_solve_given_a_tolerance_refines_only_as_far_as_it_needs():
+    # With an absolute tolerance the refined factorization stops refining once its predicted
+    # error is within it, and after its first (always refined) solve skips refinement when
+    # ten times the single-precision error measured so far is within it. Reference: spsolve.
+    from boardheat.stepping.solvers import _PardisoFamily
+
+    _needs_pardiso()
+    K, M = _layered_board_matrices(20_000)
+    family = _PardisoFamily(M, K, maxfct=1, single=True)
+    factor = family.factor(60.0)
+    rng = np.random.default_rng(SEED + 19)
+    first = rng.normal(size=K.shape[0])
+    factor.solve(first, tolerance=1.0)
+    assert factor.refinements == 1  # measures the single-precision error
+    exact = spsolve((M + 60.0 * K).tocsc(), first)
+    rough_error = np.abs(factor._factor.solve(first) - exact).max()
+    for tolerance, refined in ((100.0 * rough_error, 0), (0.0, 1)):
+        before = factor.refinements
+        rhs = rng.normal(size=K.shape[0])
+        x = factor.solve(rhs, tolerance=tolerance)
+        assert factor.refinements - before >= refined
+        if refined == 0:
+            assert factor.refinements == before
+        error = np.abs(x - spsolve((M + 60.0 * K).tocsc(), rhs)).max()
+        assert error <= max(tolerance, 1e-7 * np.abs(x).max())
+
+
+def test_refinement_that_cannot_converge_falls_back_to_double(caplog):
+    # The tridiagonal 1-D Laplacian tridiag(-1, 2, -1) of order n has eigenvalues
+    # 2 - 2 cos(k pi / (n + 1)) (Strang, Linear Algebra and Its Applications, 4th ed., Sec. 7.4,
+    # recalled from memory), so kappa ~ 4 (n + 1)^2 / pi^2: 3.6e8 at n = 30 000, beyond
+    # 1 / u_single = 1.7e7. Refinement cannot converge; the solve must still be right
+    # (reference: spsolve; double precision leaves kappa * 1e-16 ~ 4e-8), via a double-precision
+    # factorization of the same matrix, with a warning.
+    from boardheat.stepping.solvers import _PardisoFamily
+
+    _needs_pardiso()
+    n = 30_000
+    T = sp.diags_array(
+        [-np.ones(n - 1), 2.0 * np.ones(n), -np.ones(n - 1)], offsets=[-1, 0, 1]
+    ).tocsr()
+    M = sp.eye_array(n, format="csr") * 1e-9
+    family = _PardisoFamily(M, T, maxfct=2, single=True)
+    factor = family.factor(1.0)
+    rhs = np.random.default_rng(SEED + 17).normal(size=n)
+    with caplog.at_level("WARNING", logger="boardheat.stepping.solvers"):
+        x = factor.solve(rhs)
+    exact = spsolve((M + T).tocsc(), rhs)
+    assert np.abs(x - exact).max() <= 1e-6 * np.abs(exact).max()
+    assert factor.double
+    assert "refactored in double precision" in caplog.text
+    np.testing.assert_allclose(factor.solve(2.0 * rhs), 2.0 * x, rtol=1e-12)  # double from now on
+    assert factor.nbytes > 0
+
+
+def test_auto_precision_is_mixed_only_where_memory_crowds_double_factorizations():
+    # "auto" halves the factorizations (single precision, refined solves) when the memory
+    # budget would hold at most CROWDED_SLOTS of them in double, and not when the count limit
+    # is what holds the cache small or memory is plentiful.
+    from boardheat.stepping.solvers import CROWDED_SLOTS, _FactorCache
+
+    _needs_pardiso()
+    K, M = _layered_board_matrices(6_000)
+    probe = _FactorCache(M, K, 0.3, "pardiso", size=40, budget=2**40)
+    assert probe.precision == "double"
+    double_bytes = probe._expected_bytes
+    tight = int((CROWDED_SLOTS + 0.5) * double_bytes)
+    mixed = _FactorCache(M, K, 0.3, "pardiso", size=40, budget=tight, precision="auto")
+    assert mixed.precision == "mixed"
+    assert mixed._expected_bytes < 0.55 * double_bytes
+    assert not mixed.crowded  # seven single-precision factorizations fit
+    roomy = _FactorCache(M, K, 0.3, "pardiso", size=40, budget=10 * double_bytes, precision="auto")
+    assert roomy.precision == "double"
+    counted = _FactorCache(M, K, 0.3, "pardiso", size=2, budget=tight, precision="auto")
+    assert counted.precision == "double"
+    assert counted.crowded
+    rhs = np.ones(K.shape[0])
+    x = mixed.get(0.5).solve(rhs)
+    np.testing.assert_allclose(x, spsolve((M + 0.15 * K).tocsc(), rhs), rtol=1e-7)
+    assert mixed.refinements >= 1
+    with pytest.raises(SolverError, match="precision 'mixed' with the 'splu' back end"):
+        _FactorCache(M, K, 0.3, "splu", size=4, precision="mixed")
+    with pytest.raises(SolverError, match="StepperOptions.precision"):
+        StepperOptions(precision="quad")
+
+
+def test_mixed_precision_integration_takes_the_same_steps_as_double():
+    # Each solve errs by at most SOLVE_TOLERANCE * atol = 1e-6 K here (refinement stops, or
+    # is skipped, once the predicted error is within it), so the step controller sees the
+    # same error estimates and takes the same steps, and the probe temperatures agree within
+    # 1e-5 K (measured on the demo board, atol 0.02 K: 1.1e-6 K). A 5 W pulse on a layered
+    # board, both runs on PARDISO.
+    _needs_pardiso()
+    K, M = _layered_board_matrices(8_000)
+    n = K.shape[0]
+    source = n // 2
+    B = sp.csr_array((np.ones(1), ([source], [0])), shape=(n, 1))
+    p, bps = pulse_train(5.0, [0.5], [2.0])
+    ode = LinearOde(M, K, K @ np.full(n, T_AMB), B, p, bps)
+    P = sp.csr_array((np.ones(1), ([0], [source])), shape=(1, n))
+    runs = {
+        precision: integrate(
+            ode,
+            np.full(n, T_AMB),
+            20.0,
+            P,
+            StepperOptions(backend="pardiso", precision=precision, rtol=1e-3, atol=1e-3),
+        )
+        for precision in ("double", "mixed")
+    }
+    double, mixed = runs["double"], runs["mixed"]
+    assert mixed.stats.precision == "mixed"
+    assert double.stats.precision == "double"
+    # the first solve of every factorization is refined (it measures the single-precision
+    # error); with atol = 1e-3 K some later ones need not be (on the demo board, atol 0.02 K,
+    # 80 of 765 solves are refined)
+    assert mixed.stats.factorizations <= mixed.stats.refinements < mixed.stats.solves
+    assert double.stats.refinements == 0
+    np.testing.assert_array_equal(mixed.t, double.t)
+    np.testing.assert_allclose(mixed.probes, double.probes, rtol=0, atol=1e-5)
+    assert double.probes.max() - T_AMB > 1.0  # the pulse heats the source node
+
+
 def test_singular_matrix_raises_solver_error():
     singular = sp.csr_array(np.array([[1.0, -1.0], [-1.0, 1.0]]))
     with pytest.raises(SolverError, match="make_factorization"):
@@ -1142,7 +1319,7 @@ def test_factorization_cache_respects_its_memory_budget():
     # a budget of two and a half factorizations holds two, counting the one being made
     cache = _FactorCache(M, K, 0.5, "splu", size=40, budget=1)
     cache.get(0.1)
-    one = cache._bytes[0.1]
+    one = cache._store[0.1].nbytes
     cache = _FactorCache(M, K, 0.5, "splu", size=40, budget=int(2.5 * one))
     for dt in (0.1, 0.2, 0.4, 0.8):
         cache.get(dt)
@@ -1172,7 +1349,7 @@ def test_a_cache_that_holds_few_factorizations_is_crowded_from_the_start(backend
     roomy = _FactorCache(M, K, 0.5, backend, size=40, budget=2**40)
     assert not roomy.crowded
     roomy.get(0.1)
-    one = roomy._bytes[0.1]
+    one = roomy._store[0.1].nbytes
     assert not roomy.crowded
     tight = _FactorCache(M, K, 0.5, backend, size=40, budget=int(3.5 * one))
     assert tight.crowded is (backend == "pardiso")  # three fit: known at once with PARDISO

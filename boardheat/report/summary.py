@@ -47,6 +47,7 @@ STAT_LABELS: dict[str, str] = {
     "factorizations": "factorizations",
     "solves": "linear solves",
     "backend": "linear solver",
+    "precision": "factorization precision",
     "seconds_mesh": "meshing, s",
     "seconds_assembly": "assembly, s",
     "seconds_steady": "steady solve, s",

@@ -199,16 +199,26 @@ def _stops(
     return stops, set(bp.tolist())
 
 
+#: Linear solves may err by this fraction of the absolute tolerance atol (max norm, kelvin),
+#: which only mixed-precision factorizations use (to skip refinement steps). Error-controlled
+#: stiff integrators stop their Newton iterations at a fraction of 1e-1 to 1e-2 of the
+#: tolerance (Hairer & Wanner, Solving ODEs II, 2nd ed., Sec. IV.8, recalled from memory); a
+#: linear solve's error is not corrected by the next step, so a tenfold margin is added.
+SOLVE_TOLERANCE = 1e-3
+
+
 def _trbdf2_step(
     system: _System,
     factor: _Timed,
     state: tuple[float, FloatArray, FloatArray, FloatArray],
     dt: float,
     t_new: float,
+    tolerance: float = 0.0,
 ) -> tuple[FloatArray, FloatArray, FloatArray]:
     """Return (T_{n+1}, error estimate e, p(t_new, "left")) of one TR-BDF2 step.
 
     ``state`` is (t_n, T_n, F_n, p_n); the equations are in the docstring of :func:`integrate`.
+    ``tolerance`` (K) is the error each solve may make (see ``SOLVE_TOLERANCE``).
     """
     t, T, F, p0 = state
     dh = _D * dt
@@ -216,12 +226,14 @@ def _trbdf2_step(
     load_gamma = system.load_change(system.power(t + GAMMA * dt, "left"), p0)
     if load_gamma is not None:
         rhs += load_gamma
-    m_delta_gamma = system.mass(factor.solve(dh * rhs))
+    m_delta_gamma = system.mass(factor.solve(dh * rhs, tolerance))
     p1 = system.power(t_new, "left")
     load_end = system.load_change(p1, p0)
-    delta = factor.solve((_W / _D) * m_delta_gamma + dh * (F if load_end is None else F + load_end))
+    delta = factor.solve(
+        (_W / _D) * m_delta_gamma + dh * (F if load_end is None else F + load_end), tolerance
+    )
     estimate = factor.solve(
-        (_E_F * dt) * F + _E_GAMMA * m_delta_gamma + _E_END * system.mass(delta)
+        (_E_F * dt) * F + _E_GAMMA * m_delta_gamma + _E_END * system.mass(delta), tolerance
     )
     return T + delta, estimate, p1
 
@@ -232,12 +244,13 @@ def _backward_euler_step(
     state: tuple[float, FloatArray, FloatArray, FloatArray],
     dt: float,
     t_new: float,
+    tolerance: float = 0.0,
 ) -> tuple[FloatArray, FloatArray]:
     """Return (T_{n+1}, p(t_new, "left")) of one step (M + dt A) δ = dt (F_n + f_{n+1} − f_n)."""
     _, T, F, p0 = state
     p1 = system.power(t_new, "left")
     load_end = system.load_change(p1, p0)
-    return T + factor.solve(dt * (F if load_end is None else F + load_end)), p1
+    return T + factor.solve(dt * (F if load_end is None else F + load_end), tolerance), p1
 
 
 def integrate(
@@ -358,7 +371,9 @@ def integrate(
     opts = options
     trbdf2 = opts.method == "trbdf2"
     backend = _resolve_backend(opts.backend, n)
-    factors = _FactorCache(ode.M, ode.A, _D if trbdf2 else 1.0, backend, opts.cache_size)
+    factors = _FactorCache(
+        ode.M, ode.A, _D if trbdf2 else 1.0, backend, opts.cache_size, precision=opts.precision
+    )
     stops, breakpoints = _stops(ode, snaps, t_end)
     T_ref = np.full(n, opts.t_ref) if opts.t_ref is not None else T.copy()
     T.setflags(write=False)
@@ -381,6 +396,7 @@ def integrate(
         solves_per_step=3 if trbdf2 else 1,
         factor_cost=FACTOR_COST_IN_SOLVES[backend],
     )
+    solve_tolerance = SOLVE_TOLERANCE * opts.atol
     attempts = 0
     i_stop = 0
     while i_stop < stops.size:
@@ -395,13 +411,17 @@ def integrate(
             )
         factor = factors.get(dt)
         if trbdf2:
-            T_new, estimate, p1 = _trbdf2_step(system, factor, (t, T, F, p0), dt, t_new)
+            T_new, estimate, p1 = _trbdf2_step(
+                system, factor, (t, T, F, p0), dt, t_new, solve_tolerance
+            )
             rise_new = np.abs(T_new - T_ref)
             scale = opts.atol + opts.rtol * np.maximum(rise, rise_new)
             err = float(np.max(np.abs(estimate) / scale))
             finite = math.isfinite(err)
         else:
-            T_new, p1 = _backward_euler_step(system, factor, (t, T, F, p0), dt, t_new)
+            T_new, p1 = _backward_euler_step(
+                system, factor, (t, T, F, p0), dt, t_new, solve_tolerance
+            )
             err = math.nan
             finite = math.isfinite(float(T_new.sum()))
         if not finite:
@@ -453,6 +473,8 @@ def integrate(
         backend=backend,
         distinct_dt=len(factors.keys_factored),
         dt_floor_hits=control.floor_hits,
+        precision=factors.precision,
+        refinements=factors.refinements,
     )
     logger.debug("integrate finished: %s", stats)
     if stats.factorizations > stats.distinct_dt:
