@@ -187,6 +187,7 @@ def case_stepper(spec: Figures, model: Any) -> Figures:
         backend=spec["backend"],
         cache_size=spec["cache_size"],
         ladder_ratio=spec.get("ladder_ratio", 2.0),
+        precision=spec.get("precision", "auto"),
     )
     last = [time.perf_counter()]
 
@@ -211,6 +212,8 @@ def case_stepper(spec: Figures, model: Any) -> Figures:
         "seconds_solve": st.seconds_solve,
         "seconds_wall": st.seconds_total,
         "backend": st.backend,
+        "precision": st.precision,
+        "refinements": st.refinements,
         "peak_tj": peak_junction(model, sol.t, sol.probes),
         "stops": stops.tolist(),
         "complete": True,
@@ -675,6 +678,13 @@ def report(fig: Figures) -> None:
         print(table_row(label, row, peak_error(r, ref)))
     if "check" in cases:
         print(table_row("run_check (whole)", cases["check"], None))
+    for key in ("reference", "trbdf2"):
+        r = cases.get(key, {})
+        if r.get("precision") == "mixed":
+            print(
+                f"{r['label']}: factors in single precision, solves refined in double "
+                f"({r['refinements']} refinement solves, counted in solve s, not in solves)"
+            )
     print()
     print(
         "wall s: stepping only (run_check: the whole check after reading the board file). "
@@ -804,6 +814,12 @@ def parse_args(argv: list[str] | None = None) -> argparse.Namespace:
     parser.add_argument("--backend", default="auto", choices=["auto", "splu", "cholmod", "pardiso"])
     parser.add_argument("--cache-size", type=int, default=40, help="factorizations kept")
     parser.add_argument(
+        "--precision",
+        default="auto",
+        choices=["auto", "double", "mixed"],
+        help="factorization precision of the TR-BDF2 cases (StepperOptions.precision)",
+    )
+    parser.add_argument(
         "--cache-gib",
         type=_cache_gib,
         default=None,
@@ -857,6 +873,7 @@ def main(argv: list[str] | None = None) -> None:
         "duration": args.duration,
         "backend": args.backend,
         "cache_size": args.cache_size,
+        "precision": args.precision,
     }
     fig: Figures = {
         "board": str(args.board),
