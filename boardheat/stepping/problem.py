@@ -120,9 +120,9 @@ class StepperOptions:
     precision : {"auto", "double", "mixed"}
         Precision of the factorizations. "mixed" (PARDISO only) holds them in single precision,
         half the memory and about half the time of a factorization, and refines every solve
-        in double to within 1e-8 of the solution. "auto" takes "mixed" with PARDISO when
-        memory would hold at most ``CROWDED_SLOTS`` (3) double factorizations (about a million
-        DOFs on 24 GiB), else "double".
+        in double until its error is below 1e-8 of the solution or a thousandth of ``atol``.
+        "auto" takes "mixed" with PARDISO when memory would hold at most ``CROWDED_SLOTS`` (3)
+        double factorizations (about a million DOFs on 24 GiB), else "double".
     """
 
     method: Literal["trbdf2", "backward_euler"] = "trbdf2"

@@ -11,7 +11,7 @@ from collections import OrderedDict
 from collections.abc import Callable
 from dataclasses import dataclass
 from functools import cache
-from typing import Any, Protocol
+from typing import Any, Literal, Protocol
 
 import numpy as np
 import scipy.sparse as sp
@@ -445,16 +445,16 @@ class _Refined:
         if not np.any(b):
             return np.zeros_like(b)
         x: FloatArray = np.asarray(self._factor.solve(b), dtype=np.float64)
-        last = float(np.max(np.abs(x)))  # the first correction is compared with x_0
-        if self._rho_first > 0.0 and REFINE_SAFETY * self._rho_first * last <= tolerance:
+        size = last = float(np.max(np.abs(x)))  # the first correction is compared with x_0
+        if self._rho_first > 0.0 and REFINE_SAFETY * self._rho_first * size <= tolerance:
             return x
         for k in range(REFINE_MAX_STEPS):
-            size = float(np.max(np.abs(x)))
             if not 0.0 < size < math.inf:
                 break
             dx = self._factor.solve(b - (self._M @ x + self._s * (self._A @ x)))
             self.refinements += 1
             x = x + dx
+            size = float(np.max(np.abs(x)))
             step = float(np.max(np.abs(dx)))
             rho = step / last
             if not rho <= 0.5:  # not contracting (or NaN)
@@ -538,8 +538,8 @@ class _PardisoFamily:
     def use_single(self) -> int:
         """Make new factorizations in single precision; return the bytes of one (analyses).
 
-        Call before the first factorization: the double-precision handle is kept only as the
-        fallback of :class:`_Refined`.
+        Call before the first factorization. The double-precision handle and its analysis are
+        freed; a :class:`_Refined` that falls back to double makes (and analyses) a new one.
         """
         from boardheat.stepping.pardiso import PardisoPattern
 
@@ -641,7 +641,7 @@ class _FactorCache:
         backend: str,
         size: int,
         budget: int | None = None,
-        precision: str = "double",
+        precision: Literal["auto", "double", "mixed"] = "double",
     ) -> None:
         self._M = M
         self._A = A
@@ -657,8 +657,6 @@ class _FactorCache:
         self._expected_bytes = 0  # size of the next factorization: that of the last one
         # evictions come before each new factorization, so ``size`` slots are enough
         self._family: _PardisoFamily | _CholmodFamily | None = None
-        if precision not in ("auto", "double", "mixed"):
-            raise SolverError(f"precision {precision!r}; expected 'auto', 'double' or 'mixed'")
         if precision == "mixed" and backend != "pardiso":
             raise SolverError(
                 f"precision 'mixed' with the {backend!r} back end; expected the 'pardiso' back "
