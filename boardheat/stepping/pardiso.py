@@ -187,6 +187,7 @@ class PardisoPattern:
         self.threads = max(1, int(threads))
         self.single = bool(single)
         self._dtype = np.float32 if self.single else np.float64
+        self.itemsize = np.dtype(self._dtype).itemsize  # bytes per value, factor entry included
         self._ia: _IntArray = (csr.indptr + 1).astype(np.int32)
         self._ja: _IntArray = (csr.indices + 1).astype(np.int32)
         self._pt = np.zeros(64, dtype=np.int64)
@@ -247,7 +248,7 @@ class PardisoPattern:
         # handle's factorizations (measured on the 52 k DOF demo: 79, 154, 230 MiB for one,
         # two, three live ones, while the resident set grew by 73 MiB = 8 B x 9.6 M entries of
         # L each time; at 1.02 M DOFs 2.47 GiB in double and 1.24 GiB in single for 332 M).
-        self.factor_bytes = np.dtype(self._dtype).itemsize * int(self._iparm[17])
+        self.factor_bytes = self.itemsize * int(self._iparm[17])
 
     def factor(self, values: FloatArray) -> PardisoFactor:
         """Factor the matrix with this pattern and these upper-triangle values (CSR order)."""
@@ -307,7 +308,6 @@ class PardisoFactor:
         self._pattern: PardisoPattern | None = pattern
         self._mnum = mnum
         self._values = values  # phase 33 may refine iteratively with the matrix: keep it
-        self.single = pattern.single  # factors held (and solves run) in single precision
         self.nbytes = nbytes + values.nbytes
 
     def solve(self, rhs: FloatArray) -> FloatArray:

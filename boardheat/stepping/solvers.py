@@ -572,8 +572,7 @@ class _PardisoFamily:
         """Run the analysis now; return the bytes one factorization will hold."""
         values = np.asarray(self._m + self._a, dtype=np.float64)  # the analysis reads its pattern
         self._pattern.analyse(values)
-        itemsize = 4 if self.single else 8
-        return self._pattern.factor_bytes + itemsize * values.size
+        return self._pattern.factor_bytes + self._pattern.itemsize * values.size
 
     @property
     def analyses(self) -> int:
